@@ -1,0 +1,662 @@
+package sweep
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"math/cmplx"
+	"time"
+
+	"loopsweep/analysis"
+	"loopsweep/instr"
+)
+
+// Tuning of the judge and the range control. These are engineering
+// choices (common practice), not outside facts.
+const (
+	// rangeHeadroom: the input window (±range) is this many times the
+	// tone's peak, so the next point may grow by that factor without
+	// clipping.
+	rangeHeadroom = 3.0
+	// overRange: a window more than this many times the wanted one
+	// wastes resolution on an 8-bit digitizer: re-capture at once.
+	overRange = 8.0
+	// rangeHysteresis: a window between the wanted one and this many
+	// times it is kept, to avoid reconfiguring at every point.
+	rangeHysteresis = 3.0
+	// maxCaptureTries bounds re-captures (DC level, clipping, range)
+	// within one attempt.
+	maxCaptureTries = 8
+	// neighbourSigmas and the allowances: a point disagrees with its
+	// neighbours when it is further from their log-frequency chord than
+	// this many combined standard uncertainties plus the allowance plus
+	// half the chord's own change (the response's curvature).
+	neighbourSigmas      = 5.0
+	neighbourAllowDB     = 3.0
+	neighbourAllowDeg    = 20.0
+	refineNearRel        = 0.003 // a point within 0.3% of a crossing counts as "at" it
+	refineTriesPerTarget = 2
+)
+
+func (e *Engine) interrupted() bool {
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	return e.paused || e.stopped
+}
+
+// nextJob picks the next work: user commands first, then unmeasured plan
+// points in order, then neighbour checks, then refinement.
+func (e *Engine) nextJob() (job, State, bool) {
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	if len(e.queue) > 0 {
+		j := e.queue[0]
+		e.queue = e.queue[1:]
+		st := Running
+		if j.reason == "refine" {
+			st = Refining
+		}
+		return j, st, true
+	}
+	for _, p := range e.sess.Points {
+		if len(p.Attempts) == 0 {
+			return job{freq: p.FreqHz, reason: "plan"}, Running, true
+		}
+	}
+	for i, p := range e.sess.Points {
+		if e.checked[p.FreqHz] {
+			continue
+		}
+		e.checked[p.FreqHz] = true
+		if !p.Flagged && e.outlierLocked(i) {
+			return job{freq: p.FreqHz, reason: "neighbours", cyclesX: 2, attempts: 1}, Running, true
+		}
+	}
+	if e.set.Measure == MeasureLoop && e.refineUsed < e.set.RefineBudget {
+		if j, ok := e.refineJobLocked(); ok {
+			e.refineUsed++
+			return j, Refining, true
+		}
+	}
+	return job{}, Done, false
+}
+
+// outlierLocked says whether point i's chosen attempt is further from
+// the chord of its two neighbours than their uncertainties and the
+// response's curvature explain.
+func (e *Engine) outlierLocked(i int) bool {
+	pts := e.sess.Points
+	if i <= 0 || i >= len(pts)-1 {
+		return false
+	}
+	a, ok0 := e.sess.Chosen(i - 1)
+	b, ok1 := e.sess.Chosen(i)
+	c, ok2 := e.sess.Chosen(i + 1)
+	if !ok0 || !ok1 || !ok2 {
+		return false
+	}
+	t := math.Log(pts[i].FreqHz/pts[i-1].FreqHz) / math.Log(pts[i+1].FreqHz/pts[i-1].FreqHz)
+	predG := a.GainDB + t*(c.GainDB-a.GainDB)
+	sg := math.Sqrt(b.GainSigmaDB*b.GainSigmaDB + (a.GainSigmaDB*a.GainSigmaDB+c.GainSigmaDB*c.GainSigmaDB)/4)
+	if math.Abs(b.GainDB-predG) > neighbourSigmas*sg+neighbourAllowDB+math.Abs(c.GainDB-a.GainDB)/2 {
+		return true
+	}
+	pa, pb, pc := a.PhaseDeg, wrapNear(b.PhaseDeg, a.PhaseDeg), 0.0
+	pc = wrapNear(c.PhaseDeg, pb)
+	predP := pa + t*(pc-pa)
+	sp := math.Sqrt(b.PhaseSigmaDeg*b.PhaseSigmaDeg + (a.PhaseSigmaDeg*a.PhaseSigmaDeg+c.PhaseSigmaDeg*c.PhaseSigmaDeg)/4)
+	return math.Abs(pb-predP) > neighbourSigmas*sp+neighbourAllowDeg+math.Abs(pc-pa)/2
+}
+
+// wrapNear returns deg plus the multiple of 360° that brings it nearest
+// ref.
+func wrapNear(deg, ref float64) float64 {
+	return deg - 360*math.Round((deg-ref)/360)
+}
+
+// refineJobLocked proposes a point at (or a re-measure of the point
+// nearest) a crossing whose margin is not yet known well enough.
+func (e *Engine) refineJobLocked() (job, bool) {
+	m, err := e.sess.Margins()
+	if err != nil {
+		return job{}, false
+	}
+	type target struct {
+		f    float64
+		need bool
+	}
+	var ts []target
+	for _, g := range m.GainCrossovers {
+		ts = append(ts, target{g.FreqHz, g.SigmaDeg > e.set.RefinePMDeg})
+	}
+	for _, p := range m.PhaseCrossovers {
+		ts = append(ts, target{p.FreqHz, p.SigmaDB > e.set.RefineGMDB})
+	}
+	for _, t := range ts {
+		if !(t.f > 0) || !finite(t.f) {
+			continue
+		}
+		near, dist := -1, math.Inf(1)
+		for i, p := range e.sess.Points {
+			if d := math.Abs(math.Log(p.FreqHz / t.f)); d < dist {
+				near, dist = i, d
+			}
+		}
+		if near < 0 {
+			continue
+		}
+		if dist > refineNearRel {
+			key := math.Round(math.Log(t.f)/refineNearRel) * refineNearRel
+			if e.refineTry[key] >= refineTriesPerTarget {
+				continue
+			}
+			e.refineTry[key]++
+			return job{freq: t.f, insert: true, reason: "refine", cyclesX: 2, attempts: 1}, true
+		}
+		if t.need {
+			f := e.sess.Points[near].FreqHz
+			key := -f // re-measures of a point counted apart from insertions
+			if e.refineTry[key] >= refineTriesPerTarget {
+				continue
+			}
+			e.refineTry[key]++
+			return job{freq: f, reason: "refine", cyclesX: 4 << e.refineTry[key], attempts: 1}, true
+		}
+	}
+	return job{}, false
+}
+
+// runJob measures one point: up to the allowed attempts, each with more
+// cycles than the last, until one passes the judge; a point that stays
+// bad is flagged. It saves the session and publishes the new margins.
+func (e *Engine) runJob(ctx context.Context, j job) error {
+	e.mu.Lock()
+	set := e.set
+	if j.override != nil {
+		set = *j.override
+	}
+	idx := e.findLocked(j.freq)
+	added := false
+	if idx < 0 {
+		if !j.insert {
+			e.mu.Unlock()
+			return nil
+		}
+		idx = e.insertLocked(Point{FreqHz: j.freq, Chosen: -1, Refined: true})
+		added = true
+	}
+	if e.paused || e.stopped {
+		e.mu.Unlock()
+		return errInterrupted
+	}
+	stepCtx, cancel := context.WithCancel(ctx)
+	e.cancelStep = cancel
+	e.mu.Unlock()
+	defer func() {
+		cancel()
+		e.mu.Lock()
+		e.cancelStep = nil
+		e.mu.Unlock()
+	}()
+	if added {
+		e.emit(PointAdded{Index: idx, FreqHz: j.freq})
+	}
+
+	maxA := j.attempts
+	if maxA <= 0 {
+		maxA = set.MaxAttempts
+	}
+	cx := j.cyclesX
+	if cx < 1 {
+		cx = 1
+	}
+	amp := set.AmplitudeAt(j.freq)
+	if set.AutoAmp && e.autoAmp > 0 {
+		amp = clampAmp(e.autoAmp, set.MaxAmpVpp)
+	}
+	reason := j.reason
+	problem := ""
+	var prev *Attempt
+	if j.reason == "neighbours" {
+		e.mu.Lock()
+		if a, ok := e.sess.Chosen(e.findLocked(j.freq)); ok {
+			prev = &a
+		}
+		e.mu.Unlock()
+	}
+	for k := 0; k < maxA; k++ {
+		cycles := set.Cycles * cx << k
+		if cycles > maxCycles {
+			cycles = maxCycles
+		}
+		e.mu.Lock()
+		idx = e.findLocked(j.freq)
+		n := len(e.sess.Points[idx].Attempts)
+		e.mu.Unlock()
+		e.emit(PointStarted{Index: idx, FreqHz: j.freq, Attempt: n + 1})
+		a, err := e.measureOnce(ctx, stepCtx, set, j.freq, amp, cycles)
+		if err != nil {
+			return err
+		}
+		a.Reason = reason
+		var next float64
+		problem, next = judge(set, a)
+		if problem == "" && prev != nil && disagree(*prev, a) {
+			problem = "attempts disagree beyond their uncertainty"
+		}
+		a.Problem = problem
+		e.mu.Lock()
+		idx = e.findLocked(j.freq)
+		p := &e.sess.Points[idx]
+		p.Attempts = append(p.Attempts, a)
+		cp := *p
+		cp.Attempts = append([]Attempt(nil), p.Attempts...)
+		e.mu.Unlock()
+		e.emit(PointMeasured{Index: idx, Point: cp})
+		if set.AutoAmp {
+			amp = next
+			e.ampNext(next)
+		}
+		if problem == "" {
+			break
+		}
+		reason = "retry: " + problem
+		if e.interrupted() && k+1 < maxA {
+			break
+		}
+	}
+	e.mu.Lock()
+	idx = e.findLocked(j.freq)
+	p := &e.sess.Points[idx]
+	flagged := false
+	if problem != "" {
+		p.Flagged, p.Flag = true, problem
+		flagged = true
+	} else if p.Flagged && j.reason != "refine" {
+		p.Flagged, p.Flag = false, ""
+	}
+	e.mu.Unlock()
+	if flagged {
+		e.emit(PointFlagged{Index: idx, Reason: problem})
+	}
+	if err := e.drainErrors(ctx, fmt.Sprintf("the point at %g Hz", j.freq)); err != nil {
+		return err
+	}
+	if err := e.Save(); err != nil {
+		return fmt.Errorf("save session: %w", err)
+	}
+	if set.Measure == MeasureLoop {
+		e.mu.Lock()
+		m, err := e.sess.Margins()
+		e.mu.Unlock()
+		if err == nil {
+			e.emit(MarginsUpdated{Margins: m})
+		}
+	}
+	return nil
+}
+
+// ampNext records the automatic level control's amplitude for the next
+// point.
+func (e *Engine) ampNext(a float64) { e.autoAmp = a }
+
+// disagree says whether two attempts at one frequency differ by more than
+// neighbourSigmas combined standard uncertainties (plus 0.1 dB / 1° for
+// the drift of a live bench).
+func disagree(a, b Attempt) bool {
+	sg := math.Hypot(a.GainSigmaDB, b.GainSigmaDB)
+	sp := math.Hypot(a.PhaseSigmaDeg, b.PhaseSigmaDeg)
+	return math.Abs(a.GainDB-b.GainDB) > neighbourSigmas*sg+0.1 ||
+		math.Abs(wrapNear(a.PhaseDeg-b.PhaseDeg, 0)) > neighbourSigmas*sp+1
+}
+
+// judge returns what is wrong with an attempt ("" when nothing) and, for
+// the automatic level control, the amplitude to use next: raised so the
+// smaller tone's SNR reaches TargetSNRdB, halved when a harmonic is above
+// MaxHarmonicDB, never above MaxAmpVpp.
+func judge(set Settings, a Attempt) (string, float64) {
+	next := a.AmpVpp
+	snr := math.Min(a.Ch1.SNRdB, a.Ch2.SNRdB)
+	harm := -math.Inf(1)
+	for _, c := range []ChannelReading{a.Ch1, a.Ch2} {
+		// A harmonic estimate is meaningful only well above the noise.
+		if c.SNRdB > -set.MaxHarmonicDB+10 {
+			harm = math.Max(harm, math.Max(c.H2dBc, c.H3dBc))
+		}
+	}
+	problem := ""
+	switch {
+	case a.Ch1.Clipped || a.Ch2.Clipped:
+		problem = "clipped at the largest range"
+	case !(snr >= set.MinSNRdB):
+		problem = fmt.Sprintf("SNR %.1f dB below %.1f dB", snr, set.MinSNRdB)
+	case set.AutoAmp && harm > set.MaxHarmonicDB:
+		problem = fmt.Sprintf("harmonics %.1f dBc above %.1f dBc", harm, set.MaxHarmonicDB)
+	}
+	if set.AutoAmp {
+		switch {
+		case harm > set.MaxHarmonicDB:
+			next = a.AmpVpp / 2
+		case snr < set.TargetSNRdB && finite(snr):
+			next = a.AmpVpp * math.Pow(10, (set.TargetSNRdB-snr)/20)
+		case snr > set.TargetSNRdB+12 && finite(snr):
+			next = a.AmpVpp * math.Pow(10, (set.TargetSNRdB+6-snr)/20)
+		}
+		next = clampAmp(next, set.MaxAmpVpp)
+	}
+	return problem, next
+}
+
+// measureOnce makes one attempt at f Hz: sets the generator (amplitude
+// before output on, large steps ramped), settles, captures with auto
+// ranging, and extracts the response.
+func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp float64, cycles int) (Attempt, error) {
+	started := e.cfg.Now()
+	amp = clampAmp(amp, set.MaxAmpVpp)
+	if err := e.apply(ctx, stepCtx, set, f, amp); err != nil {
+		return Attempt{}, err
+	}
+	var (
+		t1, t2 analysis.Tone
+		got    instr.CaptureSettings
+	)
+	for try := 0; ; try++ {
+		if e.interrupted() {
+			return Attempt{}, errInterrupted
+		}
+		want, err := e.captureWant(set, f, cycles)
+		if err != nil {
+			return Attempt{}, err
+		}
+		got, err = e.configure(ctx, want, f, cycles)
+		if err != nil {
+			return Attempt{}, err
+		}
+		if err := e.cfg.Dig.Capture(ctx, e.buf1[:got.Points], e.buf2[:got.Points]); err != nil {
+			return Attempt{}, fmt.Errorf("capture %d points at %g Hz: %w", got.Points, f, err)
+		}
+		o1 := analysis.ToneOptions{ClipLow: got.Channels[0].OffsetV - got.Channels[0].RangeV, ClipHigh: got.Channels[0].OffsetV + got.Channels[0].RangeV}
+		o2 := analysis.ToneOptions{ClipLow: got.Channels[1].OffsetV - got.Channels[1].RangeV, ClipHigh: got.Channels[1].OffsetV + got.Channels[1].RangeV}
+		t1, t2, err = analysis.EstimatePair(e.buf1[:got.Points], e.buf2[:got.Points], got.IntervalS, f, o1, o2)
+		if err != nil {
+			return Attempt{}, fmt.Errorf("estimate the tone at %g Hz: %w", f, err)
+		}
+		again := e.autorange(t1, t2, got)
+		if !again || try+1 >= maxCaptureTries {
+			break
+		}
+	}
+	var r analysis.Response
+	if set.Measure == MeasureRatio {
+		r = analysis.Ratio(t1, t2)
+	} else {
+		r = analysis.LoopGain(t1, t2)
+	}
+	h := r.H
+	if c := e.cfg.Calibration; c != nil {
+		if k := c.At(f); k != 0 {
+			h /= k
+		}
+	}
+	return Attempt{
+		Started:       started,
+		Finished:      e.cfg.Now(),
+		AmpVpp:        amp,
+		IntervalS:     got.IntervalS,
+		RecordLength:  got.Points,
+		Cycles:        t1.Cycles,
+		Ch1:           reading(t1, got.Channels[0]),
+		Ch2:           reading(t2, got.Channels[1]),
+		Re:            real(h),
+		Im:            imag(h),
+		GainDB:        20 * math.Log10(cmplx.Abs(h)),
+		PhaseDeg:      wrapDeg(cmplx.Phase(h) * 180 / math.Pi),
+		GainSigmaDB:   r.GainSigmaDB,
+		PhaseSigmaDeg: r.PhaseSigmaDeg,
+	}, nil
+}
+
+// wrapDeg wraps an angle in degrees to (−180, 180].
+func wrapDeg(d float64) float64 {
+	d = math.Mod(d, 360)
+	if d > 180 {
+		d -= 360
+	} else if d <= -180 {
+		d += 360
+	}
+	return d
+}
+
+func reading(t analysis.Tone, ch instr.ChannelSettings) ChannelReading {
+	return ChannelReading{
+		AmpPeakV: t.AmpPeak,
+		PhaseDeg: t.PhaseRad * 180 / math.Pi,
+		DCV:      t.DC,
+		NoiseV:   t.NoiseRMS,
+		SNRdB:    t.SNRdB,
+		H2dBc:    t.H2dBc,
+		H3dBc:    t.H3dBc,
+		Clipped:  t.Clipped,
+		RangeV:   ch.RangeV,
+		OffsetV:  ch.OffsetV,
+	}
+}
+
+// apply sets the generator for f Hz at amp Vpp and waits for the loop to
+// settle after any change. With the output off the amplitude is set
+// before the output is enabled; with it on, a step up of more than twice
+// is ramped in doublings, each held a couple of cycles.
+func (e *Engine) apply(ctx, stepCtx context.Context, set Settings, f, amp float64) error {
+	changed := false
+	if !e.outputOn {
+		if err := e.cfg.Gen.SetAmplitude(ctx, amp); err != nil {
+			return fmt.Errorf("set amplitude %g Vpp: %w", amp, err)
+		}
+		e.ampNow = amp
+		if err := e.cfg.Gen.SetFrequency(ctx, f); err != nil {
+			return fmt.Errorf("set frequency %g Hz: %w", f, err)
+		}
+		e.freqNow = f
+		if err := e.cfg.Gen.SetOutput(ctx, true); err != nil {
+			return fmt.Errorf("turn the output on: %w", err)
+		}
+		e.outputOn = true
+		changed = true
+	} else {
+		if f != e.freqNow {
+			if err := e.cfg.Gen.SetFrequency(ctx, f); err != nil {
+				return fmt.Errorf("set frequency %g Hz: %w", f, err)
+			}
+			e.freqNow = f
+			changed = true
+		}
+		if amp != e.ampNow {
+			for a := e.ampNow * 2; a < amp && e.ampNow > 0; a *= 2 {
+				if err := e.cfg.Gen.SetAmplitude(ctx, a); err != nil {
+					return fmt.Errorf("ramp amplitude to %g Vpp: %w", a, err)
+				}
+				e.ampNow = a
+				if err := e.sleep(ctx, stepCtx, rampDwell(f)); err != nil {
+					return err
+				}
+			}
+			if err := e.cfg.Gen.SetAmplitude(ctx, amp); err != nil {
+				return fmt.Errorf("set amplitude %g Vpp: %w", amp, err)
+			}
+			e.ampNow = amp
+			changed = true
+		}
+	}
+	if changed {
+		return e.sleep(ctx, stepCtx, set.SettleTime(f))
+	}
+	return nil
+}
+
+// rampDwell is how long each step of an amplitude ramp is held: two
+// cycles, at least 1 ms.
+func rampDwell(f float64) time.Duration {
+	d := time.Duration(2 / f * float64(time.Second))
+	if d < time.Millisecond {
+		d = time.Millisecond
+	}
+	return d
+}
+
+// sleep waits, cut short by Pause or Stop (errInterrupted) or ctx.
+func (e *Engine) sleep(ctx, stepCtx context.Context, d time.Duration) error {
+	err := e.cfg.Sleep(stepCtx, d)
+	if err == nil {
+		return nil
+	}
+	if ctx.Err() != nil {
+		return ctx.Err()
+	}
+	if e.interrupted() {
+		return errInterrupted
+	}
+	if errors.Is(err, context.Canceled) {
+		return errInterrupted
+	}
+	return fmt.Errorf("settle: %w", err)
+}
+
+// captureWant plans a record: at least cycles whole cycles of f with at
+// least MinPerCycle samples each, fewer samples per cycle (never below
+// minPerCycleMin) if the digitizer's record limit demands it, and a
+// sample rate that keeps the switching frequency's alias at least two
+// bins from the tone.
+func (e *Engine) captureWant(set Settings, f float64, cycles int) (instr.CaptureSettings, error) {
+	maxP := e.cfg.MaxPoints
+	spc := set.MinPerCycle
+	if cycles*spc > maxP {
+		spc = maxP / cycles
+		if spc < minPerCycleMin {
+			spc = minPerCycleMin
+			cycles = maxP / spc
+		}
+	}
+	if cycles < 1 {
+		return instr.CaptureSettings{}, fmt.Errorf("plan a record at %g Hz: the digitizer's %d points cannot hold one cycle", f, maxP)
+	}
+	if fsw := set.SwitchingHz; fsw > 0 {
+		base := spc
+		for d := 0; d < 64; d++ {
+			s := base + d
+			if s*cycles > maxP {
+				break
+			}
+			if aliasClear(f, s, cycles, fsw) {
+				spc = s
+				break
+			}
+		}
+	}
+	return instr.CaptureSettings{
+		Points:    cycles * spc,
+		IntervalS: 1 / (f * float64(spc)),
+		Channels:  e.chans,
+	}, nil
+}
+
+// aliasClear says whether fsw, sampled at f·spc, folds to a frequency at
+// least two DFT bins (bin = f/cycles) from f, 2f and 3f.
+func aliasClear(f float64, spc, cycles int, fsw float64) bool {
+	fs := f * float64(spc)
+	a := math.Mod(fsw, fs)
+	if a > fs/2 {
+		a = fs - a
+	}
+	bin := f / float64(cycles)
+	for h := 1.0; h <= 3; h++ {
+		if math.Abs(a-h*f) < 2*bin {
+			return false
+		}
+	}
+	return true
+}
+
+// configure sends the capture settings unless they equal the last ones,
+// then, if the digitizer rounded the sample interval, asks again for the
+// record length that holds the cycles at the actual interval.
+func (e *Engine) configure(ctx context.Context, want instr.CaptureSettings, f float64, cycles int) (instr.CaptureSettings, error) {
+	if e.haveGot && want == e.lastWant {
+		return e.lastGot, nil
+	}
+	got, err := e.cfg.Dig.Configure(ctx, want)
+	if err != nil {
+		return got, fmt.Errorf("configure the digitizer for %g Hz (%d points at %g s): %w", f, want.Points, want.IntervalS, err)
+	}
+	if !(got.IntervalS > 0) || got.Points <= 0 {
+		return got, fmt.Errorf("configure the digitizer for %g Hz: it reported %d points at %g s", f, got.Points, got.IntervalS)
+	}
+	if got.IntervalS != want.IntervalS {
+		n := int(math.Ceil(float64(cycles)/(f*got.IntervalS) - 1e-9))
+		if n > e.cfg.MaxPoints {
+			n = e.cfg.MaxPoints
+		}
+		if n != got.Points && n > 0 {
+			w2 := got
+			w2.Points = n
+			w2.Channels = want.Channels
+			g2, err := e.cfg.Dig.Configure(ctx, w2)
+			if err != nil {
+				return g2, fmt.Errorf("configure the digitizer for %g Hz (%d points at %g s): %w", f, n, got.IntervalS, err)
+			}
+			got = g2
+		}
+	}
+	if spc := 1 / (f * got.IntervalS); spc < minPerCycleMin {
+		return got, fmt.Errorf("configure the digitizer for %g Hz: its interval %g s gives %.1f samples per cycle, fewer than %d", f, got.IntervalS, spc, minPerCycleMin)
+	}
+	if got.Points > len(e.buf1) {
+		e.buf1 = make([]float64, got.Points)
+		e.buf2 = make([]float64, got.Points)
+	}
+	e.lastWant, e.lastGot, e.haveGot = want, got, true
+	return got, nil
+}
+
+// autorange sets each channel's window for the next capture from this
+// reading and says whether this one must be taken again: the DC level was
+// just learned, a channel clipped (and a larger range remains), or a
+// window was far too large for the tone.
+func (e *Engine) autorange(t1, t2 analysis.Tone, got instr.CaptureSettings) bool {
+	again := false
+	for c, t := range [2]analysis.Tone{t1, t2} {
+		ch := got.Channels[c]
+		want := math.Max(rangeHeadroom*t.AmpPeak+6*t.NoiseRMS, e.cfg.MinRangeV)
+		off := ch.OffsetV
+		if !ch.AC && !e.cfg.ACCoupling {
+			if !e.dcKnown || math.Abs(t.DC-off) > want/4 {
+				off = t.DC
+			}
+		}
+		r := ch.RangeV
+		switch {
+		case t.Clipped:
+			if r < e.cfg.MaxRangeV {
+				r = math.Min(r*4, e.cfg.MaxRangeV)
+				again = true
+			}
+			if !e.dcKnown {
+				off = ch.OffsetV
+			}
+		case r > overRange*want:
+			r = want
+			again = true
+		case r < want || r > rangeHysteresis*want:
+			r = want
+		}
+		if off != ch.OffsetV && math.Abs(off-ch.OffsetV)+t.AmpPeak > r {
+			again = true
+		}
+		e.chans[c] = instr.ChannelSettings{RangeV: r, OffsetV: off, AC: ch.AC || e.cfg.ACCoupling}
+	}
+	if !e.dcKnown {
+		e.dcKnown = true
+		again = true
+	}
+	return again
+}
