@@ -177,7 +177,7 @@ type decoder struct {
 	scratch []byte
 }
 
-const scratchSize = 64 << 10
+const scratchSize = 256 << 10
 
 // readBlock reads one block (header and data, not the terminator) from
 // r into dst, decoding with f. The block must hold exactly len(dst)
@@ -234,10 +234,6 @@ func (d *decoder) decode(r io.Reader, f DataFormat, dst []float64) error {
 	size := f.Encoding.Size()
 	per := len(d.scratch) / size
 	scale, off := f.scale(), f.Offset
-	var order binary.ByteOrder = binary.BigEndian
-	if f.LittleEndian {
-		order = binary.LittleEndian
-	}
 	done := 0
 	for done < len(dst) {
 		k := min(per, len(dst)-done)
@@ -245,40 +241,55 @@ func (d *decoder) decode(r io.Reader, f DataFormat, dst []float64) error {
 		if m, err := io.ReadFull(r, buf); err != nil {
 			return unexpectedEOF(err, fmt.Sprintf("block data: got %d of %d bytes", done*size+m, len(dst)*size))
 		}
-		out := dst[done : done+k]
-		switch f.Encoding {
-		case Int8:
-			for i := range out {
-				out[i] = float64(int8(buf[i]))*scale + off
-			}
-		case Int16:
-			if f.LittleEndian {
-				for i := range out {
-					out[i] = float64(int16(binary.LittleEndian.Uint16(buf[2*i:])))*scale + off
-				}
-			} else {
-				for i := range out {
-					out[i] = float64(int16(binary.BigEndian.Uint16(buf[2*i:])))*scale + off
-				}
-			}
-		case Real32:
-			if f.LittleEndian {
-				for i := range out {
-					out[i] = float64(math.Float32frombits(binary.LittleEndian.Uint32(buf[4*i:])))*scale + off
-				}
-			} else {
-				for i := range out {
-					out[i] = float64(math.Float32frombits(binary.BigEndian.Uint32(buf[4*i:])))*scale + off
-				}
-			}
-		case Real64:
-			for i := range out {
-				out[i] = math.Float64frombits(order.Uint64(buf[8*i:]))*scale + off
-			}
-		}
+		convert(f.Encoding, f.LittleEndian, buf, dst[done:done+k], scale, off)
 		done += k
 	}
 	return nil
+}
+
+// convert decodes len(out) samples from buf (len(out)·size bytes).
+// Each case walks buf and out in step so the compiler can drop bounds
+// checks from the inner loop.
+func convert(e Encoding, little bool, buf []byte, out []float64, scale, off float64) {
+	switch e {
+	case Int8:
+		buf = buf[:len(out)]
+		for i, b := range buf {
+			out[i] = float64(int8(b))*scale + off
+		}
+	case Int16:
+		if little {
+			for i := range out {
+				b := buf[2*i : 2*i+2 : 2*i+2]
+				out[i] = float64(int16(uint16(b[0])|uint16(b[1])<<8))*scale + off
+			}
+		} else {
+			for i := range out {
+				b := buf[2*i : 2*i+2 : 2*i+2]
+				out[i] = float64(int16(uint16(b[1])|uint16(b[0])<<8))*scale + off
+			}
+		}
+	case Real32:
+		if little {
+			for i := range out {
+				out[i] = float64(math.Float32frombits(binary.LittleEndian.Uint32(buf[4*i:])))*scale + off
+			}
+		} else {
+			for i := range out {
+				out[i] = float64(math.Float32frombits(binary.BigEndian.Uint32(buf[4*i:])))*scale + off
+			}
+		}
+	case Real64:
+		if little {
+			for i := range out {
+				out[i] = math.Float64frombits(binary.LittleEndian.Uint64(buf[8*i:]))*scale + off
+			}
+		} else {
+			for i := range out {
+				out[i] = math.Float64frombits(binary.BigEndian.Uint64(buf[8*i:]))*scale + off
+			}
+		}
+	}
 }
 
 // decodeASCII reads len(dst) comma-separated numbers ended by newline.
@@ -299,6 +310,7 @@ func decodeASCII(r *bufio.Reader, f DataFormat, dst []float64) error {
 			t := trimSpace(tok[:n])
 			if len(t) == 0 {
 				if b == '\n' && count == 0 {
+					_ = r.UnreadByte()
 					return blockErr("ascii data: empty reply, want %d values", len(dst))
 				}
 				return skipLine(r, b, blockErr("ascii data: empty value at position %d", count+1))
@@ -314,10 +326,11 @@ func decodeASCII(r *bufio.Reader, f DataFormat, dst []float64) error {
 			count++
 			n = 0
 			if b == '\n' {
+				_ = r.UnreadByte()
 				if count != len(dst) {
 					return blockErr("ascii data: got %d values, want %d", count, len(dst))
 				}
-				return r.UnreadByte()
+				return nil
 			}
 		default:
 			if n == len(tok) {
