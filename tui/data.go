@@ -6,7 +6,6 @@ import (
 	"strings"
 	"time"
 
-	"loopsweep/analysis"
 	"loopsweep/sweep"
 )
 
@@ -33,38 +32,11 @@ type pointView struct {
 	Attempts      int
 }
 
-// chosenAttempt returns the attempt that counts for p: the one p.Chosen
-// names, or else the one with the smallest uncertainty, scored as gain σ
-// in dB plus phase σ in degrees over 10 (1 dB weighs like 10°), preferring
-// attempts without a recorded problem and, on a tie, the latest.
-func chosenAttempt(p sweep.Point) (sweep.Attempt, bool) {
-	if len(p.Attempts) == 0 {
-		return sweep.Attempt{}, false
-	}
-	if p.Chosen >= 0 && p.Chosen < len(p.Attempts) {
-		return p.Attempts[p.Chosen], true
-	}
-	best := -1
-	bestScore := math.Inf(1)
-	for i, a := range p.Attempts {
-		score := a.GainSigmaDB + a.PhaseSigmaDeg/10
-		if a.Problem != "" {
-			score += 1e6
-		}
-		if math.IsNaN(score) {
-			score = math.Inf(1)
-		}
-		if best < 0 || score <= bestScore {
-			best, bestScore = i, score
-		}
-	}
-	return p.Attempts[best], true
-}
-
 // viewPoints converts session points for display. Phases are unwrapped
 // along the sweep, each step taken as the shortest turn, so a loop whose
 // phase falls through −180° draws as one continuous curve.
-func viewPoints(pts []sweep.Point) []pointView {
+func viewPoints(s *sweep.Session) []pointView {
+	pts := s.Points
 	out := make([]pointView, len(pts))
 	prev, havePrev := 0.0, false
 	for i, p := range pts {
@@ -75,7 +47,7 @@ func viewPoints(pts []sweep.Point) []pointView {
 		case len(p.Attempts) > 1:
 			v.Quality = qRetried
 		}
-		if a, ok := chosenAttempt(p); ok && finite(a.GainDB) && finite(a.PhaseDeg) {
+		if a, ok := s.Chosen(i); ok && finite(a.GainDB) && finite(a.PhaseDeg) {
 			v.Has = true
 			v.GainDB = a.GainDB
 			v.GainSigmaDB = a.GainSigmaDB
@@ -89,23 +61,6 @@ func viewPoints(pts []sweep.Point) []pointView {
 			prev, havePrev = ph, true
 		}
 		out[i] = v
-	}
-	return out
-}
-
-// marginPoints returns the chosen attempts of a loop-gain sweep as
-// analysis points, in frequency order as the session keeps them.
-func marginPoints(pts []sweep.Point) []analysis.Point {
-	out := make([]analysis.Point, 0, len(pts))
-	for _, p := range pts {
-		a, ok := chosenAttempt(p)
-		if !ok || !finite(a.GainDB) || !finite(a.PhaseDeg) {
-			continue
-		}
-		out = append(out, analysis.Point{
-			FreqHz: p.FreqHz, GainDB: a.GainDB, PhaseDeg: a.PhaseDeg,
-			GainSigmaDB: a.GainSigmaDB, PhaseSigmaDeg: a.PhaseSigmaDeg,
-		})
 	}
 	return out
 }

@@ -21,8 +21,8 @@ type tableModel struct {
 
 func newTable(st *styles) tableModel { return tableModel{st: st, cursor: -1, active: -1} }
 
-func (m *tableModel) SetSize(w, h int)            { m.w, m.h = w, h }
-func (m *tableModel) SetData(pts []pointView)     { m.pts = pts }
+func (m *tableModel) SetSize(w, h int)             { m.w, m.h = w, h }
+func (m *tableModel) SetData(pts []pointView)      { m.pts = pts }
 func (m *tableModel) SetCursor(cursor, active int) { m.cursor, m.active = cursor, active }
 
 func (m tableModel) Update(msg tea.Msg) (tableModel, tea.Cmd) { return m, nil }
@@ -31,16 +31,21 @@ func (m tableModel) Update(msg tea.Msg) (tableModel, tea.Cmd) { return m, nil }
 func qualityText(p pointView) string {
 	switch {
 	case p.Quality == qFlagged:
-		return "x flag"
+		return "x!"
 	case p.Quality == qRetried:
-		return fmt.Sprintf("o ×%d", p.Attempts)
+		return fmt.Sprintf("o%d", p.Attempts)
 	case !p.Has:
-		return "…"
+		return ""
 	}
 	return "·"
 }
 
-const tableHeader = "   #   freq Hz  gain dB  phase °  SNR dB  q"
+// tableRow is the format of a row: marker, number, frequency, gain dB,
+// phase °, SNR dB and quality; 36 cells, so it fits half of 80 columns.
+const (
+	tableRow    = "%1s%3d %6s %7s %7s %4s %-3s"
+	tableHeader = "   #   freq gain dB phase °  SNR q"
+)
 
 func (m tableModel) View() string {
 	if m.h <= 0 {
@@ -66,12 +71,11 @@ func (m tableModel) View() string {
 		case i == m.active:
 			mark = "*"
 		}
-		var l string
+		g, ph, snr := "—", "—", "—"
 		if p.Has {
-			l = fmt.Sprintf("%s%3d  %8s  %7.2f  %7.1f  %6.1f  %s", mark, i+1, formatHz(p.FreqHz), p.GainDB, p.PhaseDeg, p.SNRdB, qualityText(p))
-		} else {
-			l = fmt.Sprintf("%s%3d  %8s  %7s  %7s  %6s  %s", mark, i+1, formatHz(p.FreqHz), "—", "—", "—", qualityText(p))
+			g, ph, snr = fmt.Sprintf("%.2f", p.GainDB), fmt.Sprintf("%.1f", p.PhaseDeg), fmt.Sprintf("%.0f", p.SNRdB)
 		}
+		l := fmt.Sprintf(tableRow, mark, i+1, formatHz(p.FreqHz), g, ph, snr, qualityText(p))
 		l = fitLine(l, m.w)
 		if i == m.cursor {
 			l = m.st.sel.Render(l)
@@ -86,12 +90,16 @@ func (m tableModel) View() string {
 
 // detailLines describe one point: the attempt counted, both channels'
 // amplitudes, SNR and harmonics, the amplitude used, why it is flagged.
-func detailLines(p sweep.Point, index int) []string {
+func detailLines(s *sweep.Session, index int) []string {
+	if index < 0 || index >= len(s.Points) {
+		return []string{"no point selected"}
+	}
+	p := s.Points[index]
 	head := fmt.Sprintf("point %d  %s Hz", index+1, formatHz(p.FreqHz))
 	if len(p.Attempts) == 0 {
 		return []string{head + "  not measured yet"}
 	}
-	a, _ := chosenAttempt(p)
+	a, _ := s.Chosen(index)
 	n := 0
 	for i := range p.Attempts {
 		if p.Attempts[i].Finished.Equal(a.Finished) && p.Attempts[i].Started.Equal(a.Started) {
@@ -99,7 +107,7 @@ func detailLines(p sweep.Point, index int) []string {
 		}
 	}
 	out := []string{
-		fmt.Sprintf("%s  attempt %d of %d  amp %s Vpp", head, n, len(p.Attempts), formatV(a.AmpVpp)),
+		fmt.Sprintf("%s  attempt %d of %d  amp %sVpp", head, n, len(p.Attempts), formatHz(a.AmpVpp)),
 		channelLine("ch1", a.Ch1),
 		channelLine("ch2", a.Ch2),
 		fmt.Sprintf("gain %.2f ± %.2f dB  phase %.1f ± %.1f°", a.GainDB, a.GainSigmaDB, a.PhaseDeg, a.PhaseSigmaDeg),
