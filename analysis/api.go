@@ -25,6 +25,10 @@ type ToneOptions struct {
 	// A sample at or beyond either marks the tone Clipped. Both zero
 	// disables the check.
 	ClipLow, ClipHigh float64
+	// SkipHarmonics leaves the 2nd and 3rd harmonics out of the fit
+	// (faster; their energy then counts as noise). The zero value fits
+	// them.
+	SkipHarmonics bool
 }
 
 // Tone is the estimate of one sinusoid of known frequency in a record:
@@ -34,7 +38,7 @@ type Tone struct {
 	Phasor   complex128 // AmpPeak·exp(j·PhaseRad), volts peak; phase referred to the first sample
 	AmpPeak  float64    // volts peak
 	PhaseRad float64    // radians, in (−π, π]
-	DC       float64    // volts, mean of the span used
+	DC       float64    // volts, fitted offset (the mean of the span over whole cycles)
 	// NoiseRMS is the rms of the residual after removing DC and the fitted
 	// tone (and its 2nd and 3rd harmonics), volts, over the record's
 	// full bandwidth.
@@ -48,6 +52,10 @@ type Tone struct {
 	Clipped      bool
 	N            int     // samples used (the whole-cycle span for Rect)
 	Cycles       float64 // cycles of FreqHz in the span used
+	// Harmonics is the highest harmonic order fitted: 3, or less when 2f
+	// or 3f is at or above Nyquist or SkipHarmonics is set. H2dBc and
+	// H3dBc of a harmonic not fitted read HarmonicFloorDBc.
+	Harmonics int
 }
 
 // Response is one point of a measured frequency response.
