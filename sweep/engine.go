@@ -46,6 +46,9 @@ type Config struct {
 	// operating point is measured on the first capture and each
 	// channel's offset is set to it.
 	ACCoupling bool
+	// FixedOffset says the digitizer cannot move a channel's window
+	// (no offset setting): ranges then cover the DC level as well.
+	FixedOffset bool
 	// MaxPoints is the digitizer's longest record per channel; zero
 	// means 65536.
 	MaxPoints int

@@ -184,6 +184,7 @@ func (e *Engine) runJob(ctx context.Context, j job) error {
 			return nil
 		}
 		idx = e.insertLocked(Point{FreqHz: j.freq, Chosen: -1, Refined: true})
+		e.checked[j.freq] = true
 		added = true
 	}
 	if e.paused || e.stopped {
@@ -263,7 +264,11 @@ func (e *Engine) runJob(ctx context.Context, j job) error {
 		}
 		reason = "retry: " + problem
 		if e.interrupted() && k+1 < maxA {
-			break
+			// Keep what was measured; the job runs again on Resume.
+			if err := e.Save(); err != nil {
+				return fmt.Errorf("save session: %w", err)
+			}
+			return errInterrupted
 		}
 	}
 	e.mu.Lock()
@@ -591,11 +596,8 @@ func (e *Engine) configure(ctx context.Context, want instr.CaptureSettings, f fl
 	if !(got.IntervalS > 0) || got.Points <= 0 {
 		return got, fmt.Errorf("configure the digitizer for %g Hz: it reported %d points at %g s", f, got.Points, got.IntervalS)
 	}
-	if got.IntervalS != want.IntervalS {
-		n := int(math.Ceil(float64(cycles)/(f*got.IntervalS) - 1e-9))
-		if n > e.cfg.MaxPoints {
-			n = e.cfg.MaxPoints
-		}
+	if got.IntervalS != want.IntervalS || got.Points != want.Points {
+		n := wholeCyclePoints(cycles, f*got.IntervalS, e.cfg.MaxPoints)
 		if n != got.Points && n > 0 {
 			w2 := got
 			w2.Points = n
@@ -618,6 +620,33 @@ func (e *Engine) configure(ctx context.Context, want instr.CaptureSettings, f fl
 	return got, nil
 }
 
+// wholeCyclePoints returns the record length, at most maxP, that holds
+// at least cycles cycles at r cycles per sample and is closest to a whole
+// number of them: it tries cycle counts from cycles up to 1.5·cycles and
+// stops at the first within 1e-4 cycle of whole, else keeps the closest.
+// At the actual (rounded) sample interval, a length chosen this way keeps
+// the whole record inside analysis's whole-cycle span.
+func wholeCyclePoints(cycles int, r float64, maxP int) int {
+	best, bestRes := int(math.Ceil(float64(cycles)/r-1e-9)), math.Inf(1)
+	for c := cycles; c <= cycles+cycles/2; c++ {
+		m := int(math.Round(float64(c) / r))
+		if m > maxP || m < 1 {
+			break
+		}
+		res := math.Abs(float64(m)*r - float64(c))
+		if res < bestRes {
+			best, bestRes = m, res
+		}
+		if res <= 1e-4 {
+			break
+		}
+	}
+	if best > maxP {
+		best = maxP
+	}
+	return best
+}
+
 // autorange sets each channel's window for the next capture from this
 // reading and says whether this one must be taken again: the DC level was
 // just learned, a channel clipped (and a larger range remains), or a
@@ -628,7 +657,10 @@ func (e *Engine) autorange(t1, t2 analysis.Tone, got instr.CaptureSettings) bool
 		ch := got.Channels[c]
 		want := math.Max(rangeHeadroom*t.AmpPeak+6*t.NoiseRMS, e.cfg.MinRangeV)
 		off := ch.OffsetV
-		if !ch.AC && !e.cfg.ACCoupling {
+		if e.cfg.FixedOffset && !ch.AC && !e.cfg.ACCoupling {
+			// The window cannot move: it must hold the DC level too.
+			want = math.Max(want, math.Abs(t.DC-off)+rangeHeadroom*t.AmpPeak+6*t.NoiseRMS)
+		} else if !ch.AC && !e.cfg.ACCoupling {
 			if !e.dcKnown || math.Abs(t.DC-off) > want/4 {
 				off = t.DC
 			}
