@@ -95,8 +95,12 @@ type ChannelReading struct {
 
 // Attempt is one measurement of a point; every attempt is kept.
 type Attempt struct {
-	Started       time.Time      `json:"started"`
-	Finished      time.Time      `json:"finished"`
+	Started  time.Time `json:"started"`
+	Finished time.Time `json:"finished"`
+	// FreqHz is the tone actually injected: the point's frequency moved
+	// (by well under 1%) so the record holds whole cycles. Zero in files
+	// that predate it means the point's frequency.
+	FreqHz        float64        `json:"freq_hz,omitempty"`
 	AmpVpp        float64        `json:"amp_vpp"`
 	IntervalS     float64        `json:"sample_interval_s"`
 	RecordLength  int            `json:"record_length"`

@@ -42,7 +42,7 @@ func CalibrationFromSession(s *Session) (*Calibration, error) {
 		if !ok {
 			continue
 		}
-		c.Points = append(c.Points, CalPoint{FreqHz: s.Points[i].FreqHz, GainDB: a.GainDB, PhaseDeg: a.PhaseDeg})
+		c.Points = append(c.Points, CalPoint{FreqHz: a.Tone(s.Points[i].FreqHz), GainDB: a.GainDB, PhaseDeg: a.PhaseDeg})
 	}
 	if len(c.Points) == 0 {
 		return nil, errors.New("calibration: the sweep has no measured point")

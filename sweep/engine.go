@@ -109,6 +109,7 @@ type Engine struct {
 	dcKnown  bool
 	lastWant instr.CaptureSettings
 	lastGot  instr.CaptureSettings
+	lastTone float64
 	haveGot  bool
 	buf1     []float64
 	buf2     []float64

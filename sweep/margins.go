@@ -60,7 +60,7 @@ func (s *Session) Curve() []analysis.Point {
 			continue
 		}
 		pts = append(pts, analysis.Point{
-			FreqHz:        s.Points[i].FreqHz,
+			FreqHz:        a.Tone(s.Points[i].FreqHz),
 			GainDB:        a.GainDB,
 			PhaseDeg:      a.PhaseDeg,
 			GainSigmaDB:   a.GainSigmaDB,
@@ -88,4 +88,13 @@ func (s *Session) Margins() (analysis.Margins, error) {
 		return analysis.Margins{WorstPM: -1, WorstGM: -1}, ErrNotLoop
 	}
 	return analysis.ComputeMargins(s.Curve())
+}
+
+// Tone returns the frequency the attempt injected: FreqHz, or pointHz
+// for attempts recorded without it.
+func (a Attempt) Tone(pointHz float64) float64 {
+	if a.FreqHz > 0 {
+		return a.FreqHz
+	}
+	return pointHz
 }

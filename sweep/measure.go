@@ -353,18 +353,17 @@ func judge(set Settings, a Attempt) (string, float64) {
 	return problem, next
 }
 
-// measureOnce makes one attempt at f Hz: sets the generator (amplitude
-// before output on, large steps ramped), settles, captures with auto
-// ranging, and extracts the response.
+// measureOnce makes one attempt near f Hz: plans and configures the
+// record, sets the generator to the tone that the record holds a whole
+// number of cycles of (amplitude before output on, large steps ramped),
+// settles, captures with auto ranging, and extracts the response.
 func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp float64, cycles int) (Attempt, error) {
 	started := e.cfg.Now()
 	amp = clampAmp(amp, set.MaxAmpVpp)
-	if err := e.apply(ctx, stepCtx, set, f, amp); err != nil {
-		return Attempt{}, err
-	}
 	var (
 		t1, t2 analysis.Tone
 		got    instr.CaptureSettings
+		tone   float64
 	)
 	for try := 0; ; try++ {
 		if e.interrupted() {
@@ -374,18 +373,24 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 		if err != nil {
 			return Attempt{}, err
 		}
-		got, err = e.configure(ctx, want, f, cycles)
+		got, tone, err = e.configure(ctx, want, f, cycles)
 		if err != nil {
 			return Attempt{}, err
 		}
+		if err := e.apply(ctx, stepCtx, set, tone, amp); err != nil {
+			return Attempt{}, err
+		}
+		if e.interrupted() {
+			return Attempt{}, errInterrupted
+		}
 		if err := e.cfg.Dig.Capture(ctx, e.buf1[:got.Points], e.buf2[:got.Points]); err != nil {
-			return Attempt{}, fmt.Errorf("capture %d points at %g Hz: %w", got.Points, f, err)
+			return Attempt{}, fmt.Errorf("capture %d points at %g Hz: %w", got.Points, tone, err)
 		}
 		o1 := analysis.ToneOptions{ClipLow: got.Channels[0].OffsetV - got.Channels[0].RangeV, ClipHigh: got.Channels[0].OffsetV + got.Channels[0].RangeV}
 		o2 := analysis.ToneOptions{ClipLow: got.Channels[1].OffsetV - got.Channels[1].RangeV, ClipHigh: got.Channels[1].OffsetV + got.Channels[1].RangeV}
-		t1, t2, err = analysis.EstimatePair(e.buf1[:got.Points], e.buf2[:got.Points], got.IntervalS, f, o1, o2)
+		t1, t2, err = analysis.EstimatePair(e.buf1[:got.Points], e.buf2[:got.Points], got.IntervalS, tone, o1, o2)
 		if err != nil {
-			return Attempt{}, fmt.Errorf("estimate the tone at %g Hz: %w", f, err)
+			return Attempt{}, fmt.Errorf("estimate the tone at %g Hz: %w", tone, err)
 		}
 		again := e.autorange(t1, t2, got)
 		if !again || try+1 >= maxCaptureTries {
@@ -400,13 +405,14 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 	}
 	h := r.H
 	if c := e.cfg.Calibration; c != nil {
-		if k := c.At(f); k != 0 {
+		if k := c.At(tone); k != 0 {
 			h /= k
 		}
 	}
 	return Attempt{
 		Started:       started,
 		Finished:      e.cfg.Now(),
+		FreqHz:        tone,
 		AmpVpp:        amp,
 		IntervalS:     got.IntervalS,
 		RecordLength:  got.Points,
@@ -582,69 +588,73 @@ func aliasClear(f float64, spc, cycles int, fsw float64) bool {
 	return true
 }
 
-// configure sends the capture settings unless they equal the last ones,
-// then, if the digitizer rounded the sample interval, asks again for the
-// record length that holds the cycles at the actual interval.
-func (e *Engine) configure(ctx context.Context, want instr.CaptureSettings, f float64, cycles int) (instr.CaptureSettings, error) {
+// configure sends the capture settings unless they equal the last ones
+// and returns what the digitizer chose and the tone frequency to use:
+// at the actual (rounded) sample interval it picks the record length and
+// cycle count (at least cycles) that come nearest a whole number of
+// cycles, asks again if the length differs, and moves the tone by at most
+// half a sample's worth of phase over the record (a relative shift below
+// 1/(2·samples per cycle·cycles)) so the record holds exactly whole
+// cycles of it.
+func (e *Engine) configure(ctx context.Context, want instr.CaptureSettings, f float64, cycles int) (instr.CaptureSettings, float64, error) {
 	if e.haveGot && want == e.lastWant {
-		return e.lastGot, nil
+		return e.lastGot, e.lastTone, nil
 	}
 	got, err := e.cfg.Dig.Configure(ctx, want)
 	if err != nil {
-		return got, fmt.Errorf("configure the digitizer for %g Hz (%d points at %g s): %w", f, want.Points, want.IntervalS, err)
+		return got, 0, fmt.Errorf("configure the digitizer for %g Hz (%d points at %g s): %w", f, want.Points, want.IntervalS, err)
 	}
 	if !(got.IntervalS > 0) || got.Points <= 0 {
-		return got, fmt.Errorf("configure the digitizer for %g Hz: it reported %d points at %g s", f, got.Points, got.IntervalS)
-	}
-	if got.IntervalS != want.IntervalS || got.Points != want.Points {
-		n := wholeCyclePoints(cycles, f*got.IntervalS, e.cfg.MaxPoints)
-		if n != got.Points && n > 0 {
-			w2 := got
-			w2.Points = n
-			w2.Channels = want.Channels
-			g2, err := e.cfg.Dig.Configure(ctx, w2)
-			if err != nil {
-				return g2, fmt.Errorf("configure the digitizer for %g Hz (%d points at %g s): %w", f, n, got.IntervalS, err)
-			}
-			got = g2
-		}
+		return got, 0, fmt.Errorf("configure the digitizer for %g Hz: it reported %d points at %g s", f, got.Points, got.IntervalS)
 	}
 	if spc := 1 / (f * got.IntervalS); spc < minPerCycleMin {
-		return got, fmt.Errorf("configure the digitizer for %g Hz: its interval %g s gives %.1f samples per cycle, fewer than %d", f, got.IntervalS, spc, minPerCycleMin)
+		return got, 0, fmt.Errorf("configure the digitizer for %g Hz: its interval %g s gives %.1f samples per cycle, fewer than %d", f, got.IntervalS, spc, minPerCycleMin)
 	}
+	n, c := wholeCyclePoints(cycles, f*got.IntervalS, min(e.cfg.MaxPoints, maxPointsOf(got, want)))
+	if n != got.Points {
+		w2 := got
+		w2.Points = n
+		w2.Channels = want.Channels
+		g2, err := e.cfg.Dig.Configure(ctx, w2)
+		if err != nil {
+			return g2, 0, fmt.Errorf("configure the digitizer for %g Hz (%d points at %g s): %w", f, n, got.IntervalS, err)
+		}
+		if g2.Points != n || g2.IntervalS != got.IntervalS {
+			// The digitizer would not take the length: keep what it chose.
+			c = math.Max(1, math.Floor(float64(g2.Points)*f*g2.IntervalS))
+			n = g2.Points
+		}
+		got = g2
+	}
+	tone := c / (float64(n) * got.IntervalS)
 	if got.Points > len(e.buf1) {
 		e.buf1 = make([]float64, got.Points)
 		e.buf2 = make([]float64, got.Points)
 	}
-	e.lastWant, e.lastGot, e.haveGot = want, got, true
-	return got, nil
+	e.lastWant, e.lastGot, e.lastTone, e.haveGot = want, got, tone, true
+	return got, tone, nil
 }
 
-// wholeCyclePoints returns the record length, at most maxP, that holds
-// at least cycles cycles at r cycles per sample and is closest to a whole
-// number of them: it tries cycle counts from cycles up to 1.5·cycles and
-// stops at the first within 1e-4 cycle of whole, else keeps the closest.
-// At the actual (rounded) sample interval, a length chosen this way keeps
-// the whole record inside analysis's whole-cycle span.
-func wholeCyclePoints(cycles int, r float64, maxP int) int {
-	best, bestRes := int(math.Ceil(float64(cycles)/r-1e-9)), math.Inf(1)
-	for c := cycles; c <= cycles+cycles/2; c++ {
-		m := int(math.Round(float64(c) / r))
-		if m > maxP || m < 1 {
-			break
-		}
-		res := math.Abs(float64(m)*r - float64(c))
-		if res < bestRes {
-			best, bestRes = m, res
-		}
-		if res <= 1e-4 {
-			break
-		}
+// maxPointsOf is the record limit a Configure revealed: when it gave
+// fewer points than asked, that is the most it takes.
+func maxPointsOf(got, want instr.CaptureSettings) int {
+	if got.Points < want.Points {
+		return got.Points
 	}
-	if best > maxP {
-		best = maxP
+	return math.MaxInt
+}
+
+// wholeCyclePoints returns the record length n ≤ maxP and the cycle
+// count c (cycles, or fewer when the limit demands) for r cycles per
+// sample: n = round(c/r). The tone is then moved to c/(n·dt), a relative
+// shift of at most r/(2c) = 1/(2·samples per cycle·cycles).
+func wholeCyclePoints(cycles int, r float64, maxP int) (int, float64) {
+	if lim := int(math.Floor(float64(maxP) * r)); cycles > lim {
+		cycles = max(lim, 1)
 	}
-	return best
+	n := int(math.Round(float64(cycles) / r))
+	n = max(1, min(n, maxP))
+	return n, float64(cycles)
 }
 
 // autorange sets each channel's window for the next capture from this

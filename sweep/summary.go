@@ -109,7 +109,7 @@ func Summary(s *Session) (SummaryJSON, error) {
 			continue
 		}
 		out.Points = append(out.Points, PointJSON{
-			FreqHz: p.FreqHz, GainDB: a.GainDB, PhaseDeg: a.PhaseDeg,
+			FreqHz: a.Tone(p.FreqHz), GainDB: a.GainDB, PhaseDeg: a.PhaseDeg,
 			GainSigmaDB: a.GainSigmaDB, PhaseSigmaDeg: a.PhaseSigmaDeg,
 			Attempts: len(p.Attempts), Flagged: p.Flagged, Flag: p.Flag,
 		})
