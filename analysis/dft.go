@@ -12,7 +12,9 @@ import "math"
 // is within a few ε of exact, being re-seeded from math.Sincos every
 // reseedEvery entries. The inner loops have no recurrence through the
 // phasor, only independent sums, which keeps them close to the speed of
-// a pass that only adds the samples.
+// a pass that only adds the samples. Memory is read once, block by block;
+// inside a block (in cache) each channel's sums run in their own short
+// loops, which keeps every accumulator in a register.
 
 const (
 	blockLen    = 512
@@ -115,20 +117,18 @@ func accumulate(x1, x2 []float64, n int, r float64, k int, hann bool, o1, o2 flo
 		if hann {
 			ca, sa := hannPhase(n0, n)
 			q1 := windowBlock(d1[:l], y1, o1, t, ca, sa)
-			y1 = d1[:l]
+			p1 = blockSums(d1[:l], 0, t, k)
+			p1.Q = q1
 			if y2 != nil {
 				q2 := windowBlock(d2[:l], y2, o2, t, ca, sa)
-				y2 = d2[:l]
-				p1, p2 = blockPair(y1, y2, 0, 0, t, k)
+				p2 = blockSums(d2[:l], 0, t, k)
 				p2.Q = q2
-			} else {
-				p1 = blockOne(y1, 0, t, k)
 			}
-			p1.Q = q1
-		} else if y2 != nil {
-			p1, p2 = blockPair(y1, y2, o1, o2, t, k)
 		} else {
-			p1 = blockOne(y1, o1, t, k)
+			p1 = blockSums(y1, o1, t, k)
+			if y2 != nil {
+				p2 = blockSums(y2, o2, t, k)
+			}
 		}
 		turn(&a1, &p1, n0, r, k)
 		if x2 != nil {
@@ -171,95 +171,60 @@ func turn(a, p *sums, n0 int, r float64, k int) {
 	}
 }
 
-func blockOne(y []float64, o float64, t *tables, k int) sums {
+// blockSums returns one channel's sums over a block, referred to the
+// block's first sample. The fundamental and the harmonics run in separate
+// loops over the block (which is in cache by then) so that every
+// accumulator stays in a register; each loop adds four products as a tree
+// before touching its accumulator, which breaks the add-latency chain.
+func blockSums(y []float64, o float64, t *tables, k int) sums {
 	var s sums
-	if k == 1 {
-		tr, ti := t.re[0][:len(y)], t.im[0][:len(y)]
-		var s0, q, cr, ci float64
-		for m, v := range y {
-			v -= o
-			s0 += v
-			q += v * v
-			cr += v * tr[m]
-			ci += v * ti[m]
-		}
-		s.S0, s.Q, s.C[0] = s0, q, complex(cr, ci)
-		return s
+	s.S0, s.Q, s.C[0] = sumFund(y, o, t.re[0][:len(y)], t.im[0][:len(y)])
+	if k > 1 {
+		s.C[1], s.C[2] = sumHarm(y, o, t.re[1][:len(y)], t.im[1][:len(y)], t.re[2][:len(y)], t.im[2][:len(y)])
 	}
-	r1, i1 := t.re[0][:len(y)], t.im[0][:len(y)]
-	r2, i2 := t.re[1][:len(y)], t.im[1][:len(y)]
-	r3, i3 := t.re[2][:len(y)], t.im[2][:len(y)]
-	var s0, q, c1r, c1i, c2r, c2i, c3r, c3i float64
-	for m, v := range y {
-		v -= o
-		s0 += v
-		q += v * v
-		c1r += v * r1[m]
-		c1i += v * i1[m]
-		c2r += v * r2[m]
-		c2i += v * i2[m]
-		c3r += v * r3[m]
-		c3i += v * i3[m]
-	}
-	s.S0, s.Q = s0, q
-	s.C = [3]complex128{complex(c1r, c1i), complex(c2r, c2i), complex(c3r, c3i)}
 	return s
 }
 
-func blockPair(y1, y2 []float64, o1, o2 float64, t *tables, k int) (sums, sums) {
-	var s1, s2 sums
-	y2 = y2[:len(y1)]
-	if k == 1 {
-		tr, ti := t.re[0][:len(y1)], t.im[0][:len(y1)]
-		var a0, aq, ar, ai, b0, bq, br, bi float64
-		for m, u := range y1 {
-			u -= o1
-			v := y2[m] - o2
-			c, s := tr[m], ti[m]
-			a0 += u
-			aq += u * u
-			ar += u * c
-			ai += u * s
-			b0 += v
-			bq += v * v
-			br += v * c
-			bi += v * s
-		}
-		s1.S0, s1.Q, s1.C[0] = a0, aq, complex(ar, ai)
-		s2.S0, s2.Q, s2.C[0] = b0, bq, complex(br, bi)
-		return s1, s2
+// sumFund returns Σu, Σu², Σu·e^(−jθm) with u = y − o.
+func sumFund(y []float64, o float64, tr, ti []float64) (s0, q float64, c complex128) {
+	tr, ti = tr[:len(y)], ti[:len(y)]
+	var cr, ci float64
+	m := 0
+	for ; m+3 < len(y); m += 4 {
+		u0, u1, u2, u3 := y[m]-o, y[m+1]-o, y[m+2]-o, y[m+3]-o
+		s0 += (u0 + u1) + (u2 + u3)
+		q += (u0*u0 + u1*u1) + (u2*u2 + u3*u3)
+		cr += (u0*tr[m] + u1*tr[m+1]) + (u2*tr[m+2] + u3*tr[m+3])
+		ci += (u0*ti[m] + u1*ti[m+1]) + (u2*ti[m+2] + u3*ti[m+3])
 	}
-	r1, i1 := t.re[0][:len(y1)], t.im[0][:len(y1)]
-	r2, i2 := t.re[1][:len(y1)], t.im[1][:len(y1)]
-	r3, i3 := t.re[2][:len(y1)], t.im[2][:len(y1)]
-	var a0, aq, a1r, a1i, a2r, a2i, a3r, a3i float64
-	var b0, bq, b1r, b1i, b2r, b2i, b3r, b3i float64
-	for m, u := range y1 {
-		u -= o1
-		v := y2[m] - o2
-		a0 += u
-		aq += u * u
-		b0 += v
-		bq += v * v
-		c, s := r1[m], i1[m]
-		a1r += u * c
-		a1i += u * s
-		b1r += v * c
-		b1i += v * s
-		c, s = r2[m], i2[m]
-		a2r += u * c
-		a2i += u * s
-		b2r += v * c
-		b2i += v * s
-		c, s = r3[m], i3[m]
-		a3r += u * c
-		a3i += u * s
-		b3r += v * c
-		b3i += v * s
+	for ; m < len(y); m++ {
+		u := y[m] - o
+		s0 += u
+		q += u * u
+		cr += u * tr[m]
+		ci += u * ti[m]
 	}
-	s1.S0, s1.Q = a0, aq
-	s1.C = [3]complex128{complex(a1r, a1i), complex(a2r, a2i), complex(a3r, a3i)}
-	s2.S0, s2.Q = b0, bq
-	s2.C = [3]complex128{complex(b1r, b1i), complex(b2r, b2i), complex(b3r, b3i)}
-	return s1, s2
+	return s0, q, complex(cr, ci)
+}
+
+// sumHarm returns Σu·e^(−j2θm) and Σu·e^(−j3θm) with u = y − o.
+func sumHarm(y []float64, o float64, r2, i2, r3, i3 []float64) (c2, c3 complex128) {
+	r2, i2, r3, i3 = r2[:len(y)], i2[:len(y)], r3[:len(y)], i3[:len(y)]
+	var ar, ai, br, bi float64
+	m := 0
+	for ; m+1 < len(y); m += 2 {
+		u0, u1 := y[m]-o, y[m+1]-o
+		ar += u0*r2[m] + u1*r2[m+1]
+		ai += u0*i2[m] + u1*i2[m+1]
+		br += u0*r3[m] + u1*r3[m+1]
+		bi += u0*i3[m] + u1*i3[m+1]
+	}
+	for ; m < len(y); m++ {
+		u := y[m] - o
+		ar += u * r2[m]
+		ai += u * i2[m]
+		br += u * r3[m]
+		bi += u * i3[m]
+	}
+	return complex(ar, ai), complex(br, bi)
 }
