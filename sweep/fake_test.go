@@ -275,3 +275,8 @@ func gainCrossoverBisect(L func(float64) complex128, lo, hi float64) float64 {
 	}
 	return math.Sqrt(lo * hi)
 }
+
+type timeDuration = time.Duration
+
+// fmtSscan reads the amplitude from an "amp V" log line.
+func fmtSscan(line string, v *float64) (int, error) { return fmt.Sscanf(line, "amp %g", v) }
