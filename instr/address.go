@@ -83,13 +83,16 @@ type Address struct {
 func (a Address) String() string {
 	switch a.Transport {
 	case TCP:
-		return "tcp://" + net.JoinHostPort(a.Host, strconv.Itoa(a.Port))
+		// A zone in an IPv6 literal is written %25 in a URL (RFC 6874).
+		return "tcp://" + net.JoinHostPort(strings.ReplaceAll(a.Host, "%", "%25"), strconv.Itoa(a.Port))
 	case Serial:
 		m := a.Mode
-		return fmt.Sprintf("serial://%s?baud=%d&data=%d&parity=%s&stop=%s&flow=%s",
-			a.Device, m.Baud, m.DataBits, m.Parity, strconv.FormatFloat(m.StopBits, 'g', -1, 64), m.Flow)
+		u := url.URL{Scheme: "serial", Path: a.Device, RawQuery: fmt.Sprintf("baud=%d&data=%d&parity=%s&stop=%s&flow=%s",
+			m.Baud, m.DataBits, m.Parity, strconv.FormatFloat(m.StopBits, 'g', -1, 64), m.Flow)}
+		return u.String()
 	case USBTMC:
-		return "usbtmc://" + a.Device
+		u := url.URL{Scheme: "usbtmc", Path: a.Device}
+		return u.String()
 	}
 	return a.Raw
 }
@@ -151,7 +154,20 @@ func ParseAddress(s string) (Address, error) {
 	return Address{}, badAddr(s, "unknown form; expected tcp://HOST:PORT, serial:///dev/DEVICE?baud=N, usbtmc:///dev/usbtmcN, a device path or a VISA TCPIP::HOST::PORT::SOCKET / ASRL…::INSTR name")
 }
 
+// checkDevice rejects device paths with control characters.
+func checkDevice(s, path string) error {
+	for _, c := range path {
+		if c < 0x20 || c == 0x7f {
+			return badAddr(s, "device path %q has a control character", path)
+		}
+	}
+	return nil
+}
+
 func devicePath(s, path string) (Address, error) {
+	if err := checkDevice(s, path); err != nil {
+		return Address{}, err
+	}
 	base := path[strings.LastIndexByte(path, '/')+1:]
 	if base == "" {
 		return Address{}, badAddr(s, "device path ends in '/'")
@@ -166,8 +182,18 @@ func tcpAddr(s, host, port string) (Address, error) {
 	if host == "" {
 		return Address{}, badAddr(s, "missing host")
 	}
-	if strings.ContainsAny(host, " /?#") {
-		return Address{}, badAddr(s, "bad host %q", host)
+	for _, c := range host {
+		if !(c >= 'a' && c <= 'z' || c >= 'A' && c <= 'Z' || c >= '0' && c <= '9' || strings.ContainsRune("-._:%", c)) {
+			return Address{}, badAddr(s, "bad host %q: character %q", host, c)
+		}
+	}
+	if strings.Contains(host, ":") {
+		ip, _, _ := strings.Cut(host, "%")
+		if net.ParseIP(ip) == nil {
+			return Address{}, badAddr(s, "bad host %q: not an IPv6 address", host)
+		}
+	} else if strings.Contains(host, "%") {
+		return Address{}, badAddr(s, "bad host %q: character '%%'", host)
 	}
 	p := DefaultPort
 	if port != "" {
@@ -301,6 +327,9 @@ func parseVISASerial(s, t string) (Address, error) {
 	}
 	rest := body[4:]
 	if strings.HasPrefix(rest, "/") {
+		if err := checkDevice(s, rest); err != nil {
+			return Address{}, err
+		}
 		return Address{Transport: Serial, Device: rest, Mode: SerialMode{}.withDefaults(), Raw: s}, nil
 	}
 	n, err := visaBoard(body, "ASRL")
