@@ -109,7 +109,7 @@ type Engine struct {
 	dcKnown  bool
 	lastWant instr.CaptureSettings
 	lastGot  instr.CaptureSettings
-	lastTone float64
+	dtCache  map[float64]float64 // asked sample interval → the digitizer's
 	haveGot  bool
 	buf1     []float64
 	buf2     []float64
@@ -163,6 +163,7 @@ func New(cfg Config) (*Engine, error) {
 		quit:      make(chan struct{}),
 		checked:   map[float64]bool{},
 		refineTry: map[float64]int{},
+		dtCache:   map[float64]float64{},
 	}
 	now := cfg.Now()
 	if cfg.Session != nil {

@@ -353,10 +353,11 @@ func judge(set Settings, a Attempt) (string, float64) {
 	return problem, next
 }
 
-// measureOnce makes one attempt near f Hz: plans and configures the
-// record, sets the generator to the tone that the record holds a whole
-// number of cycles of (amplitude before output on, large steps ramped),
-// settles, captures with auto ranging, and extracts the response.
+// measureOnce makes one attempt near f Hz: plans the record, sets the
+// generator to the tone the record holds a whole number of cycles of
+// (amplitude before output on, large steps ramped), configures the
+// digitizer while the loop settles, waits out the rest of the settling
+// time, captures with auto ranging, and extracts the response.
 func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp float64, cycles int) (Attempt, error) {
 	started := e.cfg.Now()
 	amp = clampAmp(amp, set.MaxAmpVpp)
@@ -373,12 +374,33 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 		if err != nil {
 			return Attempt{}, err
 		}
-		got, tone, err = e.configure(ctx, want, f, cycles)
+		want, tone, err = e.planRecord(ctx, want, f, cycles)
 		if err != nil {
 			return Attempt{}, err
 		}
-		if err := e.apply(ctx, stepCtx, set, tone, amp); err != nil {
-			return Attempt{}, err
+		for {
+			t0 := e.cfg.Now()
+			changed, err := e.apply(ctx, stepCtx, tone, amp)
+			if err != nil {
+				return Attempt{}, err
+			}
+			got, err = e.configure(ctx, want, tone)
+			if err != nil {
+				return Attempt{}, err
+			}
+			// The digitizer may not have taken the plan (a cached
+			// interval gone stale): hold whole cycles at what it chose.
+			c := math.Max(1, math.Round(float64(got.Points)*tone*got.IntervalS))
+			actual := c / (float64(got.Points) * got.IntervalS)
+			if changed {
+				if err := e.sleep(ctx, stepCtx, set.SettleTime(tone)-e.cfg.Now().Sub(t0)); err != nil {
+					return Attempt{}, err
+				}
+			}
+			if math.Abs(actual-tone) <= 1e-9*tone {
+				break
+			}
+			tone = actual
 		}
 		if e.interrupted() {
 			return Attempt{}, errInterrupted
@@ -454,55 +476,52 @@ func reading(t analysis.Tone, ch instr.ChannelSettings) ChannelReading {
 	}
 }
 
-// apply sets the generator for f Hz at amp Vpp and waits for the loop to
-// settle after any change. With the output off the amplitude is set
-// before the output is enabled; with it on, a step up of more than twice
-// is ramped in doublings, each held a couple of cycles.
-func (e *Engine) apply(ctx, stepCtx context.Context, set Settings, f, amp float64) error {
-	changed := false
+// apply sets the generator to f Hz at amp Vpp and reports whether
+// anything changed (the caller then waits for the loop to settle). With
+// the output off the amplitude is set before the output is enabled; with
+// it on, a step up of more than twice is ramped in doublings, each held a
+// couple of cycles.
+func (e *Engine) apply(ctx, stepCtx context.Context, f, amp float64) (bool, error) {
 	if !e.outputOn {
 		if err := e.cfg.Gen.SetAmplitude(ctx, amp); err != nil {
-			return fmt.Errorf("set amplitude %g Vpp: %w", amp, err)
+			return false, fmt.Errorf("set amplitude %g Vpp: %w", amp, err)
 		}
 		e.ampNow = amp
 		if err := e.cfg.Gen.SetFrequency(ctx, f); err != nil {
-			return fmt.Errorf("set frequency %g Hz: %w", f, err)
+			return false, fmt.Errorf("set frequency %g Hz: %w", f, err)
 		}
 		e.freqNow = f
 		if err := e.cfg.Gen.SetOutput(ctx, true); err != nil {
-			return fmt.Errorf("turn the output on: %w", err)
+			return false, fmt.Errorf("turn the output on: %w", err)
 		}
 		e.outputOn = true
+		return true, nil
+	}
+	changed := false
+	if f != e.freqNow {
+		if err := e.cfg.Gen.SetFrequency(ctx, f); err != nil {
+			return false, fmt.Errorf("set frequency %g Hz: %w", f, err)
+		}
+		e.freqNow = f
 		changed = true
-	} else {
-		if f != e.freqNow {
-			if err := e.cfg.Gen.SetFrequency(ctx, f); err != nil {
-				return fmt.Errorf("set frequency %g Hz: %w", f, err)
-			}
-			e.freqNow = f
-			changed = true
-		}
-		if amp != e.ampNow {
-			for a := e.ampNow * 2; a < amp && e.ampNow > 0; a *= 2 {
-				if err := e.cfg.Gen.SetAmplitude(ctx, a); err != nil {
-					return fmt.Errorf("ramp amplitude to %g Vpp: %w", a, err)
-				}
-				e.ampNow = a
-				if err := e.sleep(ctx, stepCtx, rampDwell(f)); err != nil {
-					return err
-				}
-			}
-			if err := e.cfg.Gen.SetAmplitude(ctx, amp); err != nil {
-				return fmt.Errorf("set amplitude %g Vpp: %w", amp, err)
-			}
-			e.ampNow = amp
-			changed = true
-		}
 	}
-	if changed {
-		return e.sleep(ctx, stepCtx, set.SettleTime(f))
+	if amp != e.ampNow {
+		for a := e.ampNow * 2; a < amp && e.ampNow > 0; a *= 2 {
+			if err := e.cfg.Gen.SetAmplitude(ctx, a); err != nil {
+				return false, fmt.Errorf("ramp amplitude to %g Vpp: %w", a, err)
+			}
+			e.ampNow = a
+			if err := e.sleep(ctx, stepCtx, rampDwell(f)); err != nil {
+				return false, err
+			}
+		}
+		if err := e.cfg.Gen.SetAmplitude(ctx, amp); err != nil {
+			return false, fmt.Errorf("set amplitude %g Vpp: %w", amp, err)
+		}
+		e.ampNow = amp
+		changed = true
 	}
-	return nil
+	return changed, nil
 }
 
 // rampDwell is how long each step of an amplitude ramp is held: two
@@ -517,6 +536,9 @@ func rampDwell(f float64) time.Duration {
 
 // sleep waits, cut short by Pause or Stop (errInterrupted) or ctx.
 func (e *Engine) sleep(ctx, stepCtx context.Context, d time.Duration) error {
+	if d <= 0 {
+		return nil
+	}
 	err := e.cfg.Sleep(stepCtx, d)
 	if err == nil {
 		return nil
@@ -588,60 +610,55 @@ func aliasClear(f float64, spc, cycles int, fsw float64) bool {
 	return true
 }
 
+// planRecord fixes the record length for want's sample interval as the
+// digitizer will actually round it (learned from a Configure the first
+// time an interval is asked for, then remembered) and returns the plan
+// with the tone frequency: c/(n·dt) for c = cycles whole cycles in n
+// samples, a shift from f of at most 1/(2·samples per cycle·cycles).
+func (e *Engine) planRecord(ctx context.Context, want instr.CaptureSettings, f float64, cycles int) (instr.CaptureSettings, float64, error) {
+	dt, ok := e.dtCache[want.IntervalS]
+	if !ok {
+		got, err := e.configure(ctx, want, f)
+		if err != nil {
+			return want, 0, err
+		}
+		dt = got.IntervalS
+		e.dtCache[want.IntervalS] = dt
+		if got.Points < want.Points && got.Points < e.cfg.MaxPoints {
+			e.cfg.MaxPoints = got.Points
+		}
+	}
+	if spc := 1 / (f * dt); spc < minPerCycleMin {
+		return want, 0, fmt.Errorf("plan a record at %g Hz: the digitizer's interval %g s gives %.1f samples per cycle, fewer than %d", f, dt, spc, minPerCycleMin)
+	}
+	n, c := wholeCyclePoints(cycles, f*dt, e.cfg.MaxPoints)
+	want.Points = n
+	return want, c / (float64(n) * dt), nil
+}
+
 // configure sends the capture settings unless they equal the last ones
-// and returns what the digitizer chose and the tone frequency to use:
-// at the actual (rounded) sample interval it picks the record length and
-// cycle count (at least cycles) that come nearest a whole number of
-// cycles, asks again if the length differs, and moves the tone by at most
-// half a sample's worth of phase over the record (a relative shift below
-// 1/(2·samples per cycle·cycles)) so the record holds exactly whole
-// cycles of it.
-func (e *Engine) configure(ctx context.Context, want instr.CaptureSettings, f float64, cycles int) (instr.CaptureSettings, float64, error) {
+// and returns what the digitizer chose.
+func (e *Engine) configure(ctx context.Context, want instr.CaptureSettings, f float64) (instr.CaptureSettings, error) {
 	if e.haveGot && want == e.lastWant {
-		return e.lastGot, e.lastTone, nil
+		return e.lastGot, nil
 	}
 	got, err := e.cfg.Dig.Configure(ctx, want)
 	if err != nil {
-		return got, 0, fmt.Errorf("configure the digitizer for %g Hz (%d points at %g s): %w", f, want.Points, want.IntervalS, err)
+		return got, fmt.Errorf("configure the digitizer for %g Hz (%d points at %g s): %w", f, want.Points, want.IntervalS, err)
 	}
 	if !(got.IntervalS > 0) || got.Points <= 0 {
-		return got, 0, fmt.Errorf("configure the digitizer for %g Hz: it reported %d points at %g s", f, got.Points, got.IntervalS)
+		return got, fmt.Errorf("configure the digitizer for %g Hz: it reported %d points at %g s", f, got.Points, got.IntervalS)
 	}
 	if spc := 1 / (f * got.IntervalS); spc < minPerCycleMin {
-		return got, 0, fmt.Errorf("configure the digitizer for %g Hz: its interval %g s gives %.1f samples per cycle, fewer than %d", f, got.IntervalS, spc, minPerCycleMin)
+		return got, fmt.Errorf("configure the digitizer for %g Hz: its interval %g s gives %.1f samples per cycle, fewer than %d", f, got.IntervalS, spc, minPerCycleMin)
 	}
-	n, c := wholeCyclePoints(cycles, f*got.IntervalS, min(e.cfg.MaxPoints, maxPointsOf(got, want)))
-	if n != got.Points {
-		w2 := got
-		w2.Points = n
-		w2.Channels = want.Channels
-		g2, err := e.cfg.Dig.Configure(ctx, w2)
-		if err != nil {
-			return g2, 0, fmt.Errorf("configure the digitizer for %g Hz (%d points at %g s): %w", f, n, got.IntervalS, err)
-		}
-		if g2.Points != n || g2.IntervalS != got.IntervalS {
-			// The digitizer would not take the length: keep what it chose.
-			c = math.Max(1, math.Floor(float64(g2.Points)*f*g2.IntervalS))
-			n = g2.Points
-		}
-		got = g2
-	}
-	tone := c / (float64(n) * got.IntervalS)
+	e.dtCache[want.IntervalS] = got.IntervalS
 	if got.Points > len(e.buf1) {
 		e.buf1 = make([]float64, got.Points)
 		e.buf2 = make([]float64, got.Points)
 	}
-	e.lastWant, e.lastGot, e.lastTone, e.haveGot = want, got, tone, true
-	return got, tone, nil
-}
-
-// maxPointsOf is the record limit a Configure revealed: when it gave
-// fewer points than asked, that is the most it takes.
-func maxPointsOf(got, want instr.CaptureSettings) int {
-	if got.Points < want.Points {
-		return got.Points
-	}
-	return math.MaxInt
+	e.lastWant, e.lastGot, e.haveGot = want, got, true
+	return got, nil
 }
 
 // wholeCyclePoints returns the record length n ≤ maxP and the cycle
