@@ -53,6 +53,7 @@ type Session struct {
 	ctx         context.Context // of the current operation
 	ctxDeadline time.Time       // of the current operation, zero if none
 	extra       time.Duration   // added to the first read's deadline
+	brief       time.Duration   // when nonzero, replaces the timeout for the next read
 }
 
 // NewSession returns a Session on c; timeout <= 0 means DefaultTimeout.
@@ -84,7 +85,10 @@ func (d deadlineReader) Read(p []byte) (int, error) {
 		return 0, s.ctx.Err()
 	}
 	t := time.Now().Add(s.timeout + s.extra)
-	s.extra = 0
+	if s.brief > 0 {
+		t = time.Now().Add(s.brief)
+	}
+	s.extra, s.brief = 0, 0
 	if !s.ctxDeadline.IsZero() && s.ctxDeadline.Before(t) {
 		t = s.ctxDeadline
 	}
@@ -115,7 +119,7 @@ func (s *Session) begin(ctx context.Context) (func(), error) {
 		stop()
 		s.ctx = nil
 		s.ctxDeadline = time.Time{}
-		s.extra = 0
+		s.extra, s.brief = 0, 0
 	}, nil
 }
 
@@ -299,12 +303,9 @@ func (s *Session) queryBlock(ctx context.Context, cmd string, f DataFormat, dst 
 // sends none is tolerated: the terminator is awaited only briefly.
 func (s *Session) endReply() {
 	if s.r.Buffered() == 0 {
-		s.extra = 0
-		if err := s.c.SetReadDeadline(time.Now().Add(50 * time.Millisecond)); err != nil {
-			return
-		}
+		s.extra, s.brief = 0, 50*time.Millisecond
 		if _, err := s.r.Peek(1); err != nil {
-			s.r.Reset(deadlineReader{s})
+			s.brief = 0
 			return
 		}
 	}

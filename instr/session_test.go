@@ -255,3 +255,26 @@ func TestWriteRejectsLineBreak(t *testing.T) {
 }
 
 func float32FromBits(u uint32) float32 { return math.Float32frombits(u) }
+
+// An instrument that sends no terminator after a definite block costs a
+// brief wait, not the session timeout, and the next reply is in step.
+func TestSessionBlockWithoutTerminator(t *testing.T) {
+	ctx := context.Background()
+	blk := instrtest.Block(instrtest.Real32([]float64{1, 2}, false))
+	s, _ := dial(t, 3*time.Second,
+		instrtest.Step{Cmd: "TRACe:DATA? CH1", Reply: strings.TrimSuffix(blk, "\n")},
+		instrtest.Step{Cmd: "*IDN?", Reply: "a,b,c,d\n"},
+	)
+	dst := make([]float64, 2)
+	start := time.Now()
+	if err := s.QueryBlock(ctx, "TRACe:DATA? CH1", DataFormat{Encoding: Real32}, dst); err != nil {
+		t.Fatal(err)
+	}
+	if d := time.Since(start); d > time.Second {
+		t.Errorf("block without terminator took %v", d)
+	}
+	equal(t, "block", dst, []float64{1, 2})
+	if idn, err := s.IDN(ctx); err != nil || idn != "a,b,c,d" {
+		t.Fatalf("IDN = %q, %v", idn, err)
+	}
+}
