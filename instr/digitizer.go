@@ -295,7 +295,11 @@ func (d *Digitizer) Capture(ctx context.Context, ch1, ch2 []float64) error {
 	}
 	for i, dst := range [2][]float64{ch1, ch2} {
 		cmd := expand(d.p.Fetch, "ch", d.p.Channels[i])
-		if err := d.s.QueryBlock(ctx, cmd, d.format[i], dst); err != nil {
+		var wait time.Duration
+		if i == 0 && d.p.Done.Method == "none" {
+			wait = 2 * rec // the fetch itself waits for the record
+		}
+		if err := d.s.QueryBlockWait(ctx, cmd, d.format[i], dst, wait); err != nil {
 			return fmt.Errorf("fetch channel %d: %w", i+1, err)
 		}
 	}

@@ -135,7 +135,11 @@ func probe(ctx context.Context, w io.Writer, s *instr.Session, p *instr.Profile,
 		}
 		fmt.Fprintf(w, "*IDN?        %s\n", idn)
 		if err := showQueue(ctx, w, s); err != nil {
-			return err
+			if !errors.Is(err, instr.ErrTimeout) {
+				return err
+			}
+			// Not every instrument keeps a SCPI error queue.
+			fmt.Fprintln(w, "error queue  no answer to SYSTem:ERRor? (the instrument may not have one)")
 		}
 		fmt.Fprintln(w, "(give --kind generator|digitizer or --profile FILE to run a profile's setup)")
 		return nil

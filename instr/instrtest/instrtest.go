@@ -71,14 +71,26 @@ func (s *Server) Received() []string {
 	return append([]string(nil), s.got...)
 }
 
-// Close stops the server and reports unplayed steps. It is safe to call
-// more than once.
+// closeGrace is how long Close lets the server finish reading what the
+// client sent before it drops the connection.
+const closeGrace = time.Second
+
+// Close stops the server and reports unplayed steps. It first lets the
+// server read to the client's end of the connection (up to closeGrace),
+// so commands sent just before the client closed are still checked. It
+// is safe to call more than once.
 func (s *Server) Close() {
 	s.mu.Lock()
 	if s.ln != nil {
 		s.ln.Close()
 		s.ln = nil
 	}
+	s.mu.Unlock()
+	select {
+	case <-s.done:
+	case <-time.After(closeGrace):
+	}
+	s.mu.Lock()
 	if s.conn != nil {
 		s.conn.Close()
 	}
