@@ -313,6 +313,9 @@ func decodeASCII(r *bufio.Reader, f DataFormat, dst []float64) error {
 					_ = r.UnreadByte()
 					return blockErr("ascii data: empty reply, want %d values", len(dst))
 				}
+				if b == '\n' && count == len(dst) {
+					return r.UnreadByte() // a trailing comma, as some instruments send
+				}
 				return skipLine(r, b, blockErr("ascii data: empty value at position %d", count+1))
 			}
 			if count >= len(dst) {

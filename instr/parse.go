@@ -43,7 +43,7 @@ func ParseNumber(s string) (float64, error) {
 
 func isHeaderLike(h string) bool {
 	h = strings.TrimSpace(h)
-	if h == "" {
+	if h == "" || !(h[0] == ':' || h[0] == '*' || h[0] >= 'A' && h[0] <= 'Z' || h[0] >= 'a' && h[0] <= 'z') {
 		return false
 	}
 	for _, c := range h {

@@ -35,7 +35,7 @@ func TestParseNumber(t *testing.T) {
 	if v, err := ParseNumber("9.91E37"); err != nil || !math.IsNaN(v) {
 		t.Errorf("ParseNumber(9.91E37) = %v, %v; want NaN", v, err)
 	}
-	for _, bad := range []string{"", "abc", "1,2", "NaN", "Inf", "0x10", "1_000", "1.0.0"} {
+	for _, bad := range []string{"", "abc", "1,2", "NaN", "Inf", "0x10", "1_000", "1.0.0", "1 2"} {
 		if _, err := ParseNumber(bad); err == nil || !strings.Contains(err.Error(), "numeric reply") {
 			t.Errorf("ParseNumber(%q) error %v, want one naming the reply", bad, err)
 		}

@@ -171,6 +171,7 @@ func TestSessionBlocks(t *testing.T) {
 		instrtest.Step{Cmd: "LE?", Reply: "#0" + string(instrtest.Real64(want, true)) + "\n"},
 		instrtest.Step{Cmd: "PRE?", Reply: ":WAV:DATA " + instrtest.Block(instrtest.Real32(want, false))},
 		instrtest.Step{Cmd: "ASC?", Reply: "0.5, -1.25,3.0,0,9.765625E-04,-7.75\n", Chunk: 2},
+		instrtest.Step{Cmd: "ASC2?", Reply: "+5.0E-01,-1.25E+00,3,-0,0.0009765625,-7.75,\r\n"},
 		instrtest.Step{Cmd: "*IDN?", Reply: "x,y,z,w\n"},
 	)
 	got := make([]float64, len(want))
@@ -195,6 +196,10 @@ func TestSessionBlocks(t *testing.T) {
 		t.Fatal(err)
 	}
 	equal(t, "ascii", got, want)
+	if err := s.QueryBlock(ctx, "ASC2?", DataFormat{}, got); err != nil {
+		t.Fatal(err)
+	}
+	equal(t, "ascii with a trailing comma and CR LF", got, want)
 	// The terminators were consumed: the next reply is in step.
 	if idn, err := s.IDN(ctx); err != nil || idn != "x,y,z,w" {
 		t.Fatalf("after blocks IDN = %q, %v", idn, err)
