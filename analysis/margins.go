@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"math/cmplx"
+	"sort"
 )
 
 // Margin finding works on u = log10(f). Between two measured points a
@@ -279,45 +280,49 @@ func phaseReach(ps, sp []float64) Reach {
 }
 
 // modulusMargin returns min |1 + L| over the band and its frequency: the
-// interpolated gain and phase are scanned at 16 steps per segment and the
-// best step refined by golden-section search.
+// interpolated gain and phase are scanned at 32 steps per segment and the
+// best step refined by golden-section search over the steps either side
+// (which may lie in the neighbouring segment).
 func modulusMargin(us, gs, ps []float64) (float64, float64) {
 	zero := make([]float64, len(us))
-	dist := func(i int, u float64) float64 {
+	n := len(us)
+	dist := func(u float64) float64 {
+		i := sort.SearchFloat64s(us, u) - 1 // us[i] < u ≤ us[i+1]
+		i = max(0, min(i, n-2))
 		ip := newInterpolant(us, i)
 		g, _, _ := ip.eval(u, gs, zero)
 		p, _, _ := ip.eval(u, ps, zero)
 		l := cmplx.Rect(RatioFromDB(g), p*math.Pi/180)
 		return cmplx.Abs(1 + l)
 	}
-	const steps = 16
-	best, bu, bi := math.Inf(1), us[0], 0
-	for i := 0; i+1 < len(us); i++ {
+	const steps = 32
+	best, bu, bh := math.Inf(1), us[0], 0.0
+	for i := 0; i+1 < n; i++ {
+		h := (us[i+1] - us[i]) / steps
 		for s := 0; s <= steps; s++ {
-			u := us[i] + (us[i+1]-us[i])*float64(s)/steps
-			if d := dist(i, u); d < best {
-				best, bu, bi = d, u, i
+			u := us[i] + h*float64(s)
+			if d := dist(u); d < best {
+				best, bu, bh = d, u, h
 			}
 		}
 	}
-	h := (us[bi+1] - us[bi]) / steps
-	a, b := math.Max(us[bi], bu-h), math.Min(us[bi+1], bu+h)
+	a, b := math.Max(us[0], bu-bh), math.Min(us[n-1], bu+bh)
 	const gr = 0.6180339887498949
 	c, d := b-gr*(b-a), a+gr*(b-a)
-	fc, fd := dist(bi, c), dist(bi, d)
-	for it := 0; it < 80 && b-a > 1e-13; it++ {
+	fc, fd := dist(c), dist(d)
+	for it := 0; it < 100 && b-a > 1e-14; it++ {
 		if fc < fd {
 			b, d, fd = d, c, fc
 			c = b - gr*(b-a)
-			fc = dist(bi, c)
+			fc = dist(c)
 		} else {
 			a, c, fc = c, d, fd
 			d = a + gr*(b-a)
-			fd = dist(bi, d)
+			fd = dist(d)
 		}
 	}
-	if x := 0.5 * (a + b); dist(bi, x) < best {
-		best, bu = dist(bi, x), x
+	if x := 0.5 * (a + b); dist(x) < best {
+		best, bu = dist(x), x
 	}
 	return best, math.Pow(10, bu)
 }

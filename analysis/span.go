@@ -17,8 +17,9 @@ var (
 )
 
 // spanTolCycles is how far, in cycles, a span may be from a whole number
-// of cycles and still count as whole. Half a sample of rounding is within
-// it whenever a cycle has at least 500 samples. The tone fit solves the
+// of cycles and still count as whole (capped at half a sample, so that
+// for long cycles exactly the nearest-sample span counts). Half a sample
+// of rounding is within it whenever a cycle has at least 500 samples. The tone fit solves the
 // small DC and image cross terms exactly, so a span this close to whole is
 // unbiased and within a negligible margin of the efficient whole-cycle
 // DFT; the tolerance only decides how far back WholeCycleSpan searches.
@@ -47,11 +48,11 @@ func checkRecord(n int, dt, f float64) error {
 
 // WholeCycleSpan returns the largest m ≤ n such that m samples taken every
 // dt seconds hold a whole number k ≥ 1 of cycles of f Hz, within 1e-3
-// cycle: |m·dt·f − k| ≤ 1e-3. When the samples per cycle are not a
+// cycle and half a sample: |m·dt·f − k| ≤ min(1e-3, dt·f/2). When the samples per cycle are not a
 // rational number with a small denominator no span may be that close; the
 // search then tries cycle counts from the most that fit down to half of
-// them (at most 16384 counts) and returns the span with the smallest
-// distance from whole, the longest on a tie. The error wraps ErrNoCycles
+// them (at most 16384 counts) and returns the span of at least one cycle
+// with the smallest distance from whole, the longest on a tie. The error wraps ErrNoCycles
 // when n samples hold less than one cycle, ErrNyquist when f ≥ 1/(2·dt).
 func WholeCycleSpan(n int, dt, f float64) (int, error) {
 	if err := checkRecord(n, dt, f); err != nil {
@@ -64,25 +65,36 @@ func WholeCycleSpan(n int, dt, f float64) (int, error) {
 	}
 	kmax := int(math.Floor(c + spanTolCycles))
 	kmin := max(1, kmax/2, kmax-maxSpanSearch)
-	bestM, bestRes := 0, math.Inf(1)
-	for k := kmax; k >= kmin; k-- {
-		m := int(math.Round(float64(k) / r))
-		if m > n {
-			m = n
+	// distance of m samples from a whole number (≥ 1) of cycles; spans
+	// under one cycle do not qualify
+	dist := func(m int) float64 {
+		mc := float64(m) * r
+		if mc < 1-spanTolCycles {
+			return math.Inf(1)
 		}
-		if m < 1 {
-			continue
-		}
-		res := math.Abs(float64(m)*r - float64(k))
-		if res <= spanTolCycles {
-			return m, nil
-		}
-		if res < bestRes {
-			bestM, bestRes = m, res
-		}
+		return math.Abs(mc - math.Max(1, math.Round(mc)))
 	}
-	if bestM == 0 { // cannot happen: k = kmax always yields m ≥ 1
+	// within 1e-3 cycle and half a sample: when a cycle is longer than
+	// 500 samples only the nearest-sample span of each cycle count fits
+	tol := math.Min(spanTolCycles, r/2)
+	bestM, bestRes := n, dist(n)
+	if bestRes <= tol {
 		return n, nil
+	}
+	for k := kmax; k >= kmin; k-- {
+		lo := int(math.Floor(float64(k) / r))
+		for _, m := range [2]int{lo + 1, lo} { // the longer first
+			if m < 1 || m > n {
+				continue
+			}
+			res := dist(m)
+			if res <= tol {
+				return m, nil
+			}
+			if res < bestRes {
+				bestM, bestRes = m, res
+			}
+		}
 	}
 	return bestM, nil
 }

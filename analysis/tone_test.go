@@ -437,7 +437,7 @@ func TestWholeCycleSpan(t *testing.T) {
 	brute := func(n int, r float64) int {
 		for m := n; m >= 1; m-- {
 			c := float64(m) * r
-			if k := math.Round(c); k >= 1 && math.Abs(c-k) <= spanTolCycles {
+			if k := math.Round(c); k >= 1 && math.Abs(c-k) <= math.Min(spanTolCycles, r/2) {
 				return m
 			}
 		}
