@@ -8,6 +8,7 @@ import (
 	"os"
 	"os/exec"
 	"regexp"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -189,4 +190,51 @@ func real32BE(v []float64) []byte {
 		b = append(b, byte(u>>24), byte(u>>16), byte(u>>8), byte(u))
 	}
 	return b
+}
+
+// openPty makes a pseudo-terminal whose master side nobody reads, so
+// writes to the slave block once the line buffer is full, as they do
+// when a serial instrument holds off the line with flow control.
+func openPty(t *testing.T) string {
+	t.Helper()
+	m, err := unix.Open("/dev/ptmx", unix.O_RDWR|unix.O_NOCTTY|unix.O_CLOEXEC, 0)
+	if err != nil {
+		t.Skipf("no /dev/ptmx: %v", err)
+	}
+	t.Cleanup(func() { unix.Close(m) }) // unblocks the stuck write with EIO
+	if err := unix.IoctlSetPointerInt(m, unix.TIOCSPTLCK, 0); err != nil {
+		t.Fatal(err)
+	}
+	n, err := unix.IoctlGetInt(m, unix.TIOCGPTN)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return "/dev/pts/" + strconv.Itoa(n)
+}
+
+func TestSerialWriteTimeout(t *testing.T) {
+	dev := openPty(t)
+	c, err := Open("serial://"+dev, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer c.Close()
+	s := NewSession(c, 200*time.Millisecond)
+	big := strings.Repeat("X", 1<<20) // far more than a pty buffers
+	start := time.Now()
+	err = s.Write(context.Background(), big)
+	took := time.Since(start)
+	if !errors.Is(err, ErrTimeout) || !strings.Contains(err.Error(), dev) {
+		t.Fatalf("err = %.200v, want ErrTimeout naming %s", err, dev)
+	}
+	if len(err.Error()) > 400 {
+		t.Errorf("error message is %d bytes long: the command should be clipped", len(err.Error()))
+	}
+	if took > 2*time.Second {
+		t.Errorf("write timed out after %v, want about 200 ms", took)
+	}
+	// The port stays unusable while that write is stuck, and says so.
+	if err := s.Write(context.Background(), "*CLS"); !errors.Is(err, ErrTimeout) || !strings.Contains(err.Error(), "still blocked") {
+		t.Fatalf("second write: %.200v", err)
+	}
 }

@@ -143,6 +143,7 @@ func (s *Session) flushStale() {
 // marks the stream stale when a reply may be out of step.
 func (s *Session) fail(ctx context.Context, op, cmd string, err error) error {
 	s.stale = true
+	cmd = clip(cmd)
 	if ctx.Err() != nil {
 		return fmt.Errorf("%s %q on %s: %w", op, cmd, s.Addr(), context.Cause(ctx))
 	}
@@ -160,6 +161,15 @@ func (s *Session) fail(ctx context.Context, op, cmd string, err error) error {
 		return fmt.Errorf("%s %q on %s: connection closed by the instrument: %w", op, cmd, s.Addr(), err)
 	}
 	return fmt.Errorf("%s %q on %s: %w", op, cmd, s.Addr(), err)
+}
+
+// clip shortens a command for an error message.
+func clip(cmd string) string {
+	const max = 80
+	if len(cmd) <= max {
+		return cmd
+	}
+	return cmd[:max] + "…"
 }
 
 func (s *Session) send(ctx context.Context, cmd string) error {
