@@ -104,7 +104,7 @@ func (m marginsModel) lines() []string {
 			more = fmt.Sprintf("  (worst of %d)", n)
 		}
 		out = append(out,
-			fmt.Sprintf("fc    %s Hz ± %s%s", formatHz(c.FreqHz), formatHz(c.SigmaFreqHz), more),
+			fmt.Sprintf("fc    %s Hz ± %s Hz%s", formatHz(c.FreqHz), formatHz(c.SigmaFreqHz), more),
 			fmt.Sprintf("PM    %s", judge(m.st, fmt.Sprintf("%.1f° ± %.1f°", c.PhaseMarginDeg, c.SigmaDeg), c.PhaseMarginDeg >= m.pmTarget)))
 	} else {
 		out = append(out, "fc    "+reachText(mg.GainReach), "PM    —")
@@ -116,7 +116,7 @@ func (m marginsModel) lines() []string {
 			more = fmt.Sprintf("  (worst of %d)", n)
 		}
 		out = append(out,
-			fmt.Sprintf("f180  %s Hz ± %s%s", formatHz(c.FreqHz), formatHz(c.SigmaFreqHz), more),
+			fmt.Sprintf("f180  %s Hz ± %s Hz%s", formatHz(c.FreqHz), formatHz(c.SigmaFreqHz), more),
 			fmt.Sprintf("GM    %s", judge(m.st, fmt.Sprintf("%.1f dB ± %.1f dB", c.GainMarginDB, c.SigmaDB), c.GainMarginDB >= m.gmTarget)))
 	} else {
 		out = append(out, "f180  "+reachText(mg.PhaseReach), "GM    —")

@@ -156,7 +156,7 @@ type Model struct {
 	flashBad bool
 	started  time.Time
 	now      time.Time
-	dirty    bool
+	dirty    bool // the session changed: recompute points and margins
 
 	plot    plotModel
 	table   tableModel
@@ -340,7 +340,7 @@ func (m Model) Update(msg tea.Msg) (tea.Model, tea.Cmd) {
 			}
 			if m.live() {
 				m.now = t
-				m.dirty = true
+				redraw = true // the clock moved
 			}
 		}
 		if m.dirty {
@@ -560,6 +560,10 @@ func (m Model) key(k tea.KeyMsg) (Model, tea.Cmd) {
 	return m, nil
 }
 
+// legend explains the plot's glyphs under the full help.
+var legend = fmt.Sprintf("plot: ⠒ curve (good points) · %c retried · %c flagged · %c selected · %c measuring · %c crossover · ┊ ±σ where large",
+	glyphRetried, glyphFlagged, glyphCursor, glyphActive, glyphCrossover)
+
 // View returns the frame drawn at the last tick or key.
 func (m Model) View() string { return m.frame }
 
@@ -624,14 +628,23 @@ func (m Model) span() (lo, hi float64) {
 	return lo, hi
 }
 
-// render draws the frame into m.frame.
+// render draws the frame into m.frame, first recomputing the points and
+// margins if the session changed.
 func (m *Model) render() {
 	if m.dirty {
 		m.refresh()
 	}
+	m.draw()
+}
+
+// draw lays out and draws every panel from the computed state.
+func (m *Model) draw() {
 	w, h := max(m.w, 1), max(m.h, 1)
 	m.help.Width = w
 	helpView := m.help.View(m.keys)
+	if m.help.ShowAll {
+		helpView += "\n" + m.st.dim.Render(legend)
+	}
 	switch m.mode {
 	case modeForm:
 		helpView = m.st.dim.Render("editing settings")
@@ -740,7 +753,7 @@ func (m Model) statusLines(w int) []string {
 	if !m.started.IsZero() && !m.now.IsZero() {
 		el := m.now.Sub(m.started)
 		parts = append(parts, "elapsed "+formatDuration(el))
-		if m.live() && done > 0 && n > done {
+		if m.live() && done > 0 && n > done && el > 0 {
 			eta := time.Duration(float64(el) / float64(done) * float64(n-done))
 			parts = append(parts, "ETA "+formatDuration(eta))
 		}

@@ -127,8 +127,8 @@ func (m plotModel) View() string {
 	ph := m.h - 1 - gh
 	ga := niceAxis(gLo, gHi, gainSteps, max(1, gh/2), 4*gh)
 	pa := niceAxis(pLo, pHi, phaseSteps, max(1, ph/2), 4*ph)
-	gLabels := tickLabels(ga, gh, "dB")
-	pLabels := tickLabels(pa, ph, "°")
+	gLabels := tickLabels(ga, gh, "dB", []float64{0})
+	pLabels := tickLabels(pa, ph, "°", phaseRefs(pa))
 	lw := 1
 	for _, l := range append(append([]string{}, gLabels...), pLabels...) {
 		lw = max(lw, len([]rune(l)))
@@ -277,18 +277,27 @@ func (m plotModel) View() string {
 	return b.String()
 }
 
-// tickLabels returns one label per cell row, empty where no tick falls;
-// a tick is dropped when it would sit on the row next to another.
-func tickLabels(a axis, rows int, unit string) []string {
+// tickLabels returns one label per cell row, empty where no tick falls.
+// The reference values are labelled first; another tick is dropped when
+// it would sit on or next to a labelled row.
+func tickLabels(a axis, rows int, unit string, refs []float64) []string {
 	out := make([]string, rows)
-	last := -2
-	for v := a.hi; v >= a.lo-a.step/2; v -= a.step {
+	taken := make([]bool, rows)
+	put := func(v float64) {
 		r := a.y(v) / 4
-		if r < 0 || r >= rows || r-last < 2 {
-			continue
+		if r < 0 || r >= rows || taken[r] || (r > 0 && taken[r-1]) || (r+1 < rows && taken[r+1]) {
+			return
 		}
 		out[r] = fmt.Sprintf("%g%s", v+0, unit) // +0 turns −0 into 0
-		last = r
+		taken[r] = true
+	}
+	for _, v := range refs {
+		if v >= a.lo && v <= a.hi {
+			put(v)
+		}
+	}
+	for v := a.hi; v >= a.lo-a.step/2; v -= a.step {
+		put(v)
 	}
 	return out
 }
