@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"io"
 	"strings"
+	"sync"
 	"time"
 )
 
@@ -40,9 +41,13 @@ const maxErrors = 64
 // newline, replies end at a newline, and blocks are read by their
 // header's byte count. Every read and write has a deadline: the session
 // timeout (an idle timeout: it restarts whenever bytes arrive) or the
-// context's deadline, whichever is sooner. A Session is not safe for
-// concurrent use; it never closes its Conn.
+// context's deadline, whichever is sooner. A Session may be shared by
+// goroutines: each exchange (a write, or a command and its whole reply)
+// runs alone, so turning a generator's output off from a second
+// goroutine waits for the exchange in flight and never interleaves with
+// it. It never closes its Conn.
 type Session struct {
+	mu      sync.Mutex // held for one exchange
 	c       Conn
 	r       *bufio.Reader
 	timeout time.Duration
@@ -73,7 +78,11 @@ func (s *Session) Addr() string { return s.c.Addr() }
 func (s *Session) Timeout() time.Duration { return s.timeout }
 
 // LastCommand is the last command sent other than SYSTem:ERRor?.
-func (s *Session) LastCommand() string { return s.last }
+func (s *Session) LastCommand() string {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.last
+}
 
 // deadlineReader sets the read deadline before every read of the Conn,
 // so the timeout counts from the last byte received.
@@ -103,6 +112,7 @@ func (s *Session) begin(ctx context.Context) (func(), error) {
 	if err := ctx.Err(); err != nil {
 		return nil, err
 	}
+	s.mu.Lock()
 	s.ctx = ctx
 	s.ctxDeadline, _ = ctx.Deadline()
 	stop := func() bool { return false }
@@ -120,6 +130,7 @@ func (s *Session) begin(ctx context.Context) (func(), error) {
 		s.ctx = nil
 		s.ctxDeadline = time.Time{}
 		s.extra, s.brief = 0, 0
+		s.mu.Unlock()
 	}, nil
 }
 
@@ -356,7 +367,7 @@ func (s *Session) OPC(ctx context.Context, extra time.Duration) error {
 // ErrorQueue reads SYSTem:ERRor? until it reports 0 (at most 64
 // entries) and returns the entries, oldest first.
 func (s *Session) ErrorQueue(ctx context.Context) ([]InstrumentError, error) {
-	cmd := s.last
+	cmd := s.LastCommand()
 	var out []InstrumentError
 	for range maxErrors {
 		r, err := s.Query(ctx, errorQuery)

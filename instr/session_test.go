@@ -1,12 +1,16 @@
 package instr
 
 import (
+	"bufio"
 	"bytes"
 	"context"
 	"errors"
+	"fmt"
 	"io"
 	"math"
+	"net"
 	"strings"
+	"sync"
 	"testing"
 	"time"
 
@@ -281,5 +285,72 @@ func TestSessionBlockWithoutTerminator(t *testing.T) {
 	equal(t, "block", dst, []float64{1, 2})
 	if idn, err := s.IDN(ctx); err != nil || idn != "a,b,c,d" {
 		t.Fatalf("IDN = %q, %v", idn, err)
+	}
+}
+
+// echoServer answers every query "X?" with "x" after a short pause, in
+// whatever order commands come.
+func echoServer(t *testing.T) string {
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { ln.Close() })
+	go func() {
+		c, err := ln.Accept()
+		if err != nil {
+			return
+		}
+		defer c.Close()
+		r := bufio.NewReader(c)
+		for {
+			l, err := r.ReadString('\n')
+			if err != nil {
+				return
+			}
+			l = strings.TrimSpace(l)
+			if strings.HasSuffix(l, "?") {
+				time.Sleep(100 * time.Microsecond)
+				io.WriteString(c, strings.ToLower(strings.TrimSuffix(l, "?"))+"\n")
+			}
+		}
+	}()
+	return "tcp://" + ln.Addr().String()
+}
+
+// Two goroutines sharing a Session each get their own replies: an
+// exchange is never interleaved with another.
+func TestSessionConcurrentExchanges(t *testing.T) {
+	c, err := Open(echoServer(t), Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer c.Close()
+	s := NewSession(c, 2*time.Second)
+	var wg sync.WaitGroup
+	errs := make(chan error, 2)
+	for _, who := range []string{"A", "B"} {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for i := range 100 {
+				if i%3 == 0 {
+					if err := s.Write(context.Background(), "OUTP OFF"); err != nil {
+						errs <- err
+						return
+					}
+				}
+				r, err := s.Query(context.Background(), who+"?")
+				if err != nil || r != strings.ToLower(who) {
+					errs <- fmt.Errorf("%s query %d: %q, %v", who, i, r, err)
+					return
+				}
+			}
+		}()
+	}
+	wg.Wait()
+	close(errs)
+	for err := range errs {
+		t.Error(err)
 	}
 }
