@@ -1,9 +1,9 @@
 package tui
 
 import (
+	"fmt"
 	"math"
 	"math/cmplx"
-	"fmt"
 	"os"
 	"strings"
 	"testing"
