@@ -198,3 +198,22 @@ func FuzzParseProfile(f *testing.F) {
 		}
 	})
 }
+
+// Every profile shipped under testdata/profiles parses.
+func TestShippedProfilesParse(t *testing.T) {
+	files, err := filepath.Glob(filepath.Join("..", "testdata", "profiles", "*.toml"))
+	if err != nil || len(files) < 4 {
+		t.Fatalf("found %d profiles, %v", len(files), err)
+	}
+	for _, f := range files {
+		p, err := LoadProfile(f)
+		if err != nil {
+			t.Errorf("%v", err)
+			continue
+		}
+		base := strings.TrimSuffix(filepath.Base(f), ".toml")
+		if strings.HasPrefix(base, "example-") && p.Name != base {
+			t.Errorf("%s: name %q, want %q", f, p.Name, base)
+		}
+	}
+}
