@@ -130,9 +130,13 @@ func accumulate(x1, x2 []float64, n int, r float64, k int, hann bool, o1, o2 flo
 				p2 = blockSums(y2, o2, t, k)
 			}
 		}
-		turn(&a1, &p1, n0, r, k)
+		var rot [3]complex128
+		for h := 0; h < k; h++ {
+			rot[h] = expNeg(math.Mod(float64(n0)*float64(h+1)*r, 1))
+		}
+		turn(&a1, &p1, &rot, k)
 		if x2 != nil {
-			turn(&a2, &p2, n0, r, k)
+			turn(&a2, &p2, &rot, k)
 		}
 	}
 	return a1, a2
@@ -161,13 +165,12 @@ func windowBlock(d, y []float64, o float64, t *tables, ca, sa float64) float64 {
 }
 
 // turn adds a block's sums, referred to the block's first sample n0, to
-// the record's sums referred to sample 0.
-func turn(a, p *sums, n0 int, r float64, k int) {
+// the record's sums referred to sample 0: rot[h] = e^(−j(h+1)θ·n0).
+func turn(a, p *sums, rot *[3]complex128, k int) {
 	a.S0 += p.S0
 	a.Q += p.Q
 	for h := 0; h < k; h++ {
-		cyc := math.Mod(float64(n0)*float64(h+1)*r, 1)
-		a.C[h] += p.C[h] * expNeg(cyc)
+		a.C[h] += p.C[h] * rot[h]
 	}
 }
 

@@ -82,15 +82,18 @@ func (p interpolant) eval(x float64, ys, sig []float64) (v, dv, s float64) {
 }
 
 // crossing returns the u in [us[i], us[i+1]] where the interpolant of ys
-// equals level, by bisection; ys[i] and ys[i+1] lie on opposite sides
-// (above means > level).
-func crossing(p interpolant, us, ys []float64, i int, level float64) float64 {
+// equals level, by bisection; ys[i] and ys[i+1] lie on opposite sides,
+// "above" meaning > level, or ≥ level when atLevelIsAbove is set (the
+// same side rule that detected the crossing).
+func crossing(p interpolant, us, ys []float64, i int, level float64, atLevelIsAbove bool) float64 {
+	side := func(v float64) bool { return v > level || atLevelIsAbove && v == level }
 	lo, hi := us[i], us[i+1]
-	above := ys[i] > level
+	above := side(ys[i])
+	zero := make([]float64, len(ys))
 	for it := 0; it < 100 && hi-lo > 1e-15; it++ {
 		mid := 0.5 * (lo + hi)
-		v, _, _ := p.eval(mid, ys, make([]float64, len(ys)))
-		if (v > level) == above {
+		v, _, _ := p.eval(mid, ys, zero)
+		if side(v) == above {
 			lo = mid
 		} else {
 			hi = mid
@@ -158,7 +161,7 @@ func ComputeMargins(pts []Point) (Margins, error) {
 		ip := newInterpolant(us, i)
 		// Gain crossovers: |L| passes 0 dB.
 		if (gs[i] > 0) != (gs[i+1] > 0) {
-			u := crossing(ip, us, gs, i, 0)
+			u := crossing(ip, us, gs, i, 0, false)
 			_, dg, sgu := ip.eval(u, gs, sg)
 			ph, dph, spu := ip.eval(u, ps, sp)
 			if math.Abs(dg) < 1e-12 {
@@ -184,7 +187,7 @@ func ComputeMargins(pts []Point) (Margins, error) {
 		lvls := levelsBetween(k0, k1)
 		for _, k := range lvls {
 			level := -180 + 360*k
-			u := crossing(ip, us, ps, i, level)
+			u := crossing(ip, us, ps, i, level, true)
 			g, dg, sgu := ip.eval(u, gs, sg)
 			_, dph, spu := ip.eval(u, ps, sp)
 			if math.Abs(dph) < 1e-12 {

@@ -225,6 +225,21 @@ func TestMarginsWorkedArithmetic(t *testing.T) {
 	if got := gm(13); !near(got, -13, 1e-9) {
 		t.Errorf("+13 dB at −180°: GM %g, want −13", got)
 	}
+	// a measured point exactly at −180°: the crossing is that point, from
+	// either direction (gain linear in log f, so any interpolant is exact)
+	for _, ph := range [][3]float64{{-170, -180, -190}, {-190, -180, -170}} {
+		m, err := ComputeMargins([]Point{{100, -5, ph[0], 0, 0}, {200, -9, ph[1], 0, 0}, {400, -13, ph[2], 0, 0}})
+		if err != nil || len(m.PhaseCrossovers) != 1 || !near(m.PhaseCrossovers[0].FreqHz, 200, 1e-9) || !near(m.PhaseCrossovers[0].GainMarginDB, 9, 1e-9) {
+			t.Errorf("phases %v: %+v %v", ph, m.PhaseCrossovers, err)
+		}
+	}
+	// and a point exactly at 0 dB is the gain crossover
+	for _, g := range [][3]float64{{3, 0, -3}, {-3, 0, 3}} {
+		m, err := ComputeMargins([]Point{{100, g[0], -100, 0, 0}, {200, g[1], -135, 0, 0}, {400, g[2], -170, 0, 0}})
+		if err != nil || len(m.GainCrossovers) != 1 || !near(m.GainCrossovers[0].FreqHz, 200, 1e-9) || !near(m.GainCrossovers[0].PhaseMarginDeg, 45, 1e-9) {
+			t.Errorf("gains %v: %+v %v", g, m.GainCrossovers, err)
+		}
+	}
 }
 
 // Reach: no crossing in the band is reported as where it is expected,
