@@ -19,14 +19,16 @@ const (
 	Int16                  // signed 16-bit codes in a block
 	Real32                 // IEEE 754 binary32 in a block
 	Real64                 // IEEE 754 binary64 in a block
+	Uint8                  // unsigned 8-bit codes in a block (SCPI UINTeger,8)
+	Uint16                 // unsigned 16-bit codes in a block
 )
 
 // Size is the bytes per sample in a block (0 for ASCII).
 func (e Encoding) Size() int {
 	switch e {
-	case Int8:
+	case Int8, Uint8:
 		return 1
-	case Int16:
+	case Int16, Uint16:
 		return 2
 	case Real32:
 		return 4
@@ -48,18 +50,23 @@ func (e Encoding) String() string {
 		return "real32"
 	case Real64:
 		return "real64"
+	case Uint8:
+		return "uint8"
+	case Uint16:
+		return "uint16"
 	}
 	return "encoding(" + strconv.Itoa(int(e)) + ")"
 }
 
-// ParseEncoding parses "ascii", "int8", "int16", "real32" or "real64".
+// ParseEncoding parses "ascii", "int8", "int16", "uint8", "uint16",
+// "real32" or "real64".
 func ParseEncoding(s string) (Encoding, error) {
-	for e := ASCII; e <= Real64; e++ {
+	for e := ASCII; e <= Uint16; e++ {
 		if s == e.String() {
 			return e, nil
 		}
 	}
-	return 0, fmt.Errorf("data format %q: want ascii, int8, int16, real32 or real64", s)
+	return 0, fmt.Errorf("data format %q: want ascii, int8, int16, uint8, uint16, real32 or real64", s)
 }
 
 // DataFormat says how to turn a reply into volts:
@@ -257,6 +264,11 @@ func convert(e Encoding, little bool, buf []byte, out []float64, scale, off floa
 		for i, b := range buf {
 			out[i] = float64(int8(b))*scale + off
 		}
+	case Uint8:
+		buf = buf[:len(out)]
+		for i, b := range buf {
+			out[i] = float64(b)*scale + off
+		}
 	case Int16:
 		if little {
 			for i := range out {
@@ -267,6 +279,18 @@ func convert(e Encoding, little bool, buf []byte, out []float64, scale, off floa
 			for i := range out {
 				b := buf[2*i : 2*i+2 : 2*i+2]
 				out[i] = float64(int16(uint16(b[1])|uint16(b[0])<<8))*scale + off
+			}
+		}
+	case Uint16:
+		if little {
+			for i := range out {
+				b := buf[2*i : 2*i+2 : 2*i+2]
+				out[i] = float64(uint16(b[0])|uint16(b[1])<<8)*scale + off
+			}
+		} else {
+			for i := range out {
+				b := buf[2*i : 2*i+2 : 2*i+2]
+				out[i] = float64(uint16(b[1])|uint16(b[0])<<8)*scale + off
 			}
 		}
 	case Real32:

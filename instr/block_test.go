@@ -75,17 +75,25 @@ func TestDecodeFormats(t *testing.T) {
 	codes := []int{-32768, -1, 0, 1, 0x0A0A, 32767}
 	scale, off := 1.0/3276.8, 0.25 // ±10 V over 16 bits, 0.25 V offset
 	var be, le bytes.Buffer
-	var i8 []byte
+	var i8, u8 []byte
+	var ube, ule bytes.Buffer
 	for _, c := range codes {
 		binary.Write(&be, binary.BigEndian, int16(c))
 		binary.Write(&le, binary.LittleEndian, int16(c))
+		binary.Write(&ube, binary.BigEndian, uint16(c+32768))
+		binary.Write(&ule, binary.LittleEndian, uint16(c+32768))
 		i8 = append(i8, byte(int8(c>>8)))
+		u8 = append(u8, byte((c+32768)>>8))
 	}
 	want16 := make([]float64, len(codes))
 	want8 := make([]float64, len(codes))
+	wantU16 := make([]float64, len(codes))
+	wantU8 := make([]float64, len(codes))
 	for i, c := range codes {
 		want16[i] = float64(c)*scale + off
 		want8[i] = float64(int8(c>>8))*scale + off
+		wantU16[i] = float64(c+32768)*scale + off
+		wantU8[i] = float64((c+32768)>>8)*scale + off
 	}
 	vals := []float64{math.Pi, -math.E, 1e-9, -0.0, math.MaxFloat32, 10}
 	want32 := make([]float64, len(vals))
@@ -108,6 +116,9 @@ func TestDecodeFormats(t *testing.T) {
 		{"int16 big-endian", be.Bytes(), DataFormat{Encoding: Int16, Scale: scale, Offset: off}, want16},
 		{"int16 little-endian", le.Bytes(), DataFormat{Encoding: Int16, LittleEndian: true, Scale: scale, Offset: off}, want16},
 		{"int8", i8, DataFormat{Encoding: Int8, Scale: scale, Offset: off}, want8},
+		{"uint8", u8, DataFormat{Encoding: Uint8, Scale: scale, Offset: off}, wantU8},
+		{"uint16 big-endian", ube.Bytes(), DataFormat{Encoding: Uint16, Scale: scale, Offset: off}, wantU16},
+		{"uint16 little-endian", ule.Bytes(), DataFormat{Encoding: Uint16, LittleEndian: true, Scale: scale, Offset: off}, wantU16},
 		{"real32 big-endian", r32be.Bytes(), DataFormat{Encoding: Real32}, want32},
 		{"real32 little-endian", r32le.Bytes(), DataFormat{Encoding: Real32, LittleEndian: true}, want32},
 		{"real64 big-endian", r64be.Bytes(), DataFormat{Encoding: Real64}, vals},
@@ -195,7 +206,7 @@ func FuzzReadBlock(f *testing.F) {
 	f.Add([]byte("1,2,3\n"), uint8(ASCII), false)
 	f.Add([]byte("#(8)\x00\x00\x00\x00\x00\x00\xf0?\n"), uint8(Real64), true)
 	f.Fuzz(func(t *testing.T, msg []byte, enc uint8, little bool) {
-		e := Encoding(enc % 5)
+		e := Encoding(enc % 7)
 		for _, n := range []int{0, 1, 2, 3} {
 			var d decoder
 			dst := make([]float64, n)

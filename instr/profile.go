@@ -508,7 +508,7 @@ func (c checker) digitizer(d *digitizerFile) (*DigitizerProfile, error) {
 	}
 	const k = t + "data."
 	if d.Data.Format == nil {
-		return nil, c.err(k+"format", "missing (ascii, int8, int16, real32 or real64)")
+		return nil, c.err(k+"format", "missing (ascii, int8, int16, uint8, uint16, real32 or real64)")
 	}
 	enc, err := ParseEncoding(*d.Data.Format)
 	if err != nil {
@@ -523,10 +523,10 @@ func (c checker) digitizer(d *digitizerFile) (*DigitizerProfile, error) {
 	default:
 		return nil, c.err(k+"byte_order", fmt.Sprintf("%q: want \"big\" or \"little\"", d.Data.ByteOrder))
 	}
-	if d.Data.ByteOrder != "" && (enc == ASCII || enc == Int8) {
+	if d.Data.ByteOrder != "" && (enc == ASCII || enc == Int8 || enc == Uint8) {
 		return nil, c.err(k+"byte_order", fmt.Sprintf("means nothing for format %s", enc))
 	}
-	if (enc == Int8 || enc == Int16) && p.Data.Scale == 0 && p.Data.ScaleQuery == "" {
+	if (enc == Int8 || enc == Int16 || enc == Uint8 || enc == Uint16) && p.Data.Scale == 0 && p.Data.ScaleQuery == "" {
 		return nil, c.err(k+"scale", fmt.Sprintf("format %s needs scale (volts per code) or scale_query", enc))
 	}
 	if p.Data.ScaleQuery != "" && p.Data.Scale != 0 {
