@@ -3,6 +3,7 @@ package sweep
 import (
 	"context"
 	"math"
+	"strings"
 	"sync/atomic"
 	"testing"
 )
@@ -240,5 +241,37 @@ func TestPauseCutsSettlingShort(t *testing.T) {
 	}
 	if n := countMeasured(e.Snapshot()); n != len(e.Snapshot().Points) {
 		t.Errorf("%d of %d points measured after pause and resume", n, len(e.Snapshot().Points))
+	}
+}
+
+func TestAutoAmpBacksOffOnHarmonics(t *testing.T) {
+	// Square-law distortion on channel 2: H2 is h2k·|Y| relative to the
+	// tone, so −30 dBc (0.0316) is reached at |Y| = 0.0316/h2k.
+	r := newRig(t, injLoop3(2, 1000))
+	r.bench.h2k = 4
+	r.bench.noiseV = 1e-3
+	s := &r.cfg.Settings
+	s.AutoAmp, s.TargetSNRdB, s.MaxHarmonicDB = true, 70, -30
+	s.AmpVpp, s.MaxAmpVpp = 0.01, 0.1
+	s.StartHz, s.StopHz = 100, 400
+	s.RefineBudget = 0
+	_, sess := r.run(t)
+	backedOff := false
+	for _, p := range sess.Points {
+		for _, a := range p.Attempts {
+			if strings.HasPrefix(a.Problem, "harmonics") {
+				backedOff = true
+			}
+		}
+	}
+	if !backedOff {
+		t.Fatalf("the level control never met the distortion: the test does not exercise it")
+	}
+	// After the first encounter every chosen attempt stays near or below
+	// the limit: square law, so halving the amplitude lowers H2 by 6 dB.
+	last := len(sess.Points) - 1
+	a, _ := sess.Chosen(last)
+	if a.Ch2.H2dBc > s.MaxHarmonicDB+1 {
+		t.Errorf("last point: H2 %.1f dBc above the %g dBc limit", a.Ch2.H2dBc, s.MaxHarmonicDB)
 	}
 }

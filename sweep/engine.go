@@ -101,18 +101,19 @@ type Engine struct {
 	saveMu sync.Mutex
 
 	// Run's goroutine only.
-	outputOn bool
-	autoAmp  float64 // the level control's amplitude for the next point
-	freqNow  float64
-	ampNow   float64
-	chans    [2]instr.ChannelSettings
-	dcKnown  bool
-	lastWant instr.CaptureSettings
-	lastGot  instr.CaptureSettings
-	dtCache  map[float64]float64 // asked sample interval → the digitizer's
-	haveGot  bool
-	buf1     []float64
-	buf2     []float64
+	outputOn   bool
+	autoAmp    float64 // the level control's amplitude for the next point
+	ampCeiling float64 // above this the response was found nonlinear; 0: none
+	freqNow    float64
+	ampNow     float64
+	chans      [2]instr.ChannelSettings
+	dcKnown    bool
+	lastWant   instr.CaptureSettings
+	lastGot    instr.CaptureSettings
+	dtCache    map[float64]float64 // asked sample interval → the digitizer's
+	haveGot    bool
+	buf1       []float64
+	buf2       []float64
 }
 
 // job is one unit of work: measure the point at freq (looked up when the

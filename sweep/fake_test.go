@@ -72,6 +72,10 @@ type fakeBench struct {
 	transHz  float64
 	transTau time.Duration
 
+	// h2k adds a second harmonic to channel 2 of h2k·|Y|² volts (a
+	// square-law nonlinearity: its level relative to the tone is h2k·|Y|).
+	h2k float64
+
 	on        bool
 	freq, amp float64
 	changedAt time.Time
@@ -219,6 +223,9 @@ func (b *fakeBench) Capture(ctx context.Context, ch1, ch2 []float64) error {
 				dc = 0
 			}
 			v := dc + cmplx.Abs(P)*math.Cos(w*t+cmplx.Phase(P)) + tr + noise*b.rng.NormFloat64()
+			if c == 1 && b.h2k > 0 {
+				v += b.h2k * cmplx.Abs(P) * cmplx.Abs(P) * math.Cos(2*(w*t+cmplx.Phase(P)))
+			}
 			lo := b.cfg.Channels[c].OffsetV - b.cfg.Channels[c].RangeV
 			hi := b.cfg.Channels[c].OffsetV + b.cfg.Channels[c].RangeV
 			if v < lo {

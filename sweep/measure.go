@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"math"
 	"math/cmplx"
+	"strings"
 	"time"
 
 	"loopsweep/analysis"
@@ -256,8 +257,16 @@ func (e *Engine) runJob(ctx context.Context, j job) error {
 		e.mu.Unlock()
 		e.emit(PointMeasured{Index: idx, Point: cp})
 		if set.AutoAmp {
+			if next < a.AmpVpp && strings.HasPrefix(problem, "harmonics") {
+				// The response is not linear above this level: keep the
+				// level control below it for the rest of the sweep.
+				e.ampCeiling = next
+			}
+			if e.ampCeiling > 0 && next > e.ampCeiling {
+				next = e.ampCeiling
+			}
 			amp = next
-			e.ampNext(next)
+			e.autoAmp = next
 		}
 		if problem == "" {
 			break
@@ -302,10 +311,6 @@ func (e *Engine) runJob(ctx context.Context, j job) error {
 	return nil
 }
 
-// ampNext records the automatic level control's amplitude for the next
-// point.
-func (e *Engine) ampNext(a float64) { e.autoAmp = a }
-
 // disagree says whether two attempts at one frequency differ by more than
 // neighbourSigmas combined standard uncertainties (plus 0.1 dB / 1° for
 // the drift of a live bench).
@@ -325,9 +330,12 @@ func judge(set Settings, a Attempt) (string, float64) {
 	snr := math.Min(a.Ch1.SNRdB, a.Ch2.SNRdB)
 	harm := -math.Inf(1)
 	for _, c := range []ChannelReading{a.Ch1, a.Ch2} {
-		// A harmonic estimate is meaningful only well above the noise.
-		if c.SNRdB > -set.MaxHarmonicDB+10 {
-			harm = math.Max(harm, math.Max(c.H2dBc, c.H3dBc))
+		// A harmonic counts only when it stands 6 dB above the noise in
+		// its own bin, which sits about SNR dB below the tone.
+		for _, h := range []float64{c.H2dBc, c.H3dBc} {
+			if h > -c.SNRdB+6 {
+				harm = math.Max(harm, h)
+			}
 		}
 	}
 	problem := ""
