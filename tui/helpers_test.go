@@ -170,7 +170,10 @@ func send(t *testing.T, m Model, msgs ...tea.Msg) (Model, []tea.Cmd) {
 
 // run executes cmds (and batches inside them) with a deadline each and
 // returns their messages; blink and tick commands that wait are dropped.
-func run(cmds []tea.Cmd) []tea.Msg {
+func run(cmds []tea.Cmd) []tea.Msg { return runWithin(cmds, 50*time.Millisecond) }
+
+// runWithin is run with a given deadline per command.
+func runWithin(cmds []tea.Cmd, d time.Duration) []tea.Msg {
 	var out []tea.Msg
 	for _, c := range cmds {
 		if c == nil {
@@ -181,11 +184,11 @@ func run(cmds []tea.Cmd) []tea.Msg {
 		select {
 		case msg := <-ch:
 			if b, ok := msg.(tea.BatchMsg); ok {
-				out = append(out, run(b)...)
+				out = append(out, runWithin(b, d)...)
 				continue
 			}
 			out = append(out, msg)
-		case <-time.After(50 * time.Millisecond):
+		case <-time.After(d):
 		}
 	}
 	return out

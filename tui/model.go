@@ -771,7 +771,7 @@ func (m Model) statusLines(w int) []string {
 		line2 = m.st.bad.Render(m.flash)
 	case m.flash != "":
 		line2 = m.st.good.Render(m.flash)
-	case m.stateMsg != "" && m.state != sweep.Running:
+	case m.stateMsg != "" && m.state != sweep.Running && !strings.EqualFold(m.stateMsg, m.stateText()):
 		line2 = m.stateText() + ": " + m.stateMsg
 	default:
 		in := m.sess.Instruments
