@@ -106,13 +106,19 @@ func LoadCalibration(path string) (*Calibration, error) {
 	if err != nil {
 		return nil, fmt.Errorf("read calibration: %w", err)
 	}
+	return ParseCalibration(data, path)
+}
+
+// ParseCalibration decodes and checks calibration JSON; name is the file
+// it came from, for errors and the session record.
+func ParseCalibration(data []byte, name string) (*Calibration, error) {
 	var c Calibration
 	if err := json.Unmarshal(data, &c); err != nil {
-		return nil, fmt.Errorf("calibration %s: %w", path, err)
+		return nil, fmt.Errorf("calibration %s: %w", name, err)
 	}
 	if err := c.check(); err != nil {
-		return nil, fmt.Errorf("%s: %w", path, err)
+		return nil, fmt.Errorf("%s: %w", name, err)
 	}
-	c.Name = path
+	c.Name = name
 	return &c, nil
 }
