@@ -29,6 +29,10 @@ of the sweep command.`,
 	})
 }
 
+// openOnTerminal says whether stdout is a terminal the screen can use;
+// tests replace it.
+var openOnTerminal = func() bool { return isTerminal(os.Stdout) }
+
 func runOpen(args []string, stdout, stderr io.Writer) error {
 	c := commands["open"]
 	fs := newFlagSet(c, stderr)
@@ -82,7 +86,7 @@ func runOpen(args []string, stdout, stderr io.Writer) error {
 		}
 		return badInput("%v", err)
 	}
-	if !isTerminal(os.Stdout) {
+	if !openOnTerminal() {
 		return fmt.Errorf("open %s: the bench screen needs a terminal on stdout", file)
 	}
 	return tui.Run(tui.Options{
