@@ -16,11 +16,14 @@ import (
 // fakeClock is the injected clock and sleep: sleeping advances it, so no
 // test waits for real settling.
 type fakeClock struct {
-	mu sync.Mutex
-	t  time.Time
+	mu    sync.Mutex
+	t, t0 time.Time
 }
 
-func newClock() *fakeClock { return &fakeClock{t: time.Date(2026, 1, 2, 3, 4, 5, 0, time.UTC)} }
+func newClock() *fakeClock {
+	t := time.Date(2026, 1, 2, 3, 4, 5, 0, time.UTC)
+	return &fakeClock{t: t, t0: t}
+}
 
 func (c *fakeClock) Now() time.Time {
 	c.mu.Lock()
@@ -71,6 +74,13 @@ type fakeBench struct {
 	transRel float64
 	transHz  float64
 	transTau time.Duration
+
+	// ripple adds a sine of rippleV peak at rippleHz to both channels
+	// (switching ripple on the output node, which x = y + v_z carries).
+	rippleV, rippleHz float64
+	// steps125 rounds the sample interval to the nearest of a 1-2-5
+	// sequence (in log), as many digitizers' timebases do.
+	steps125 bool
 
 	// h2k adds a second harmonic to channel 2 of h2k·|Y|² volts (a
 	// square-law nonlinearity: its level relative to the tone is h2k·|Y|).
@@ -162,6 +172,9 @@ func (b *fakeBench) Configure(ctx context.Context, want instr.CaptureSettings) (
 	got := want
 	// The timebase runs in steps of 10 ns.
 	got.IntervalS = math.Max(1e-8, math.Round(want.IntervalS/1e-8)*1e-8)
+	if b.steps125 {
+		got.IntervalS = nearest125(want.IntervalS)
+	}
 	if got.Points > b.maxPts {
 		got.Points = b.maxPts
 	}
@@ -223,6 +236,9 @@ func (b *fakeBench) Capture(ctx context.Context, ch1, ch2 []float64) error {
 				dc = 0
 			}
 			v := dc + cmplx.Abs(P)*math.Cos(w*t+cmplx.Phase(P)) + tr + noise*b.rng.NormFloat64()
+			if b.rippleV > 0 {
+				v += b.rippleV * math.Sin(2*math.Pi*b.rippleHz*(b.clk.Now().Sub(b.clk.t0).Seconds()+t))
+			}
 			if c == 1 && b.h2k > 0 {
 				v += b.h2k * cmplx.Abs(P) * cmplx.Abs(P) * math.Cos(2*(w*t+cmplx.Phase(P)))
 			}
@@ -287,3 +303,17 @@ type timeDuration = time.Duration
 
 // fmtSscan reads the amplitude from an "amp V" log line.
 func fmtSscan(line string, v *float64) (int, error) { return fmt.Sscanf(line, "amp %g", v) }
+
+// nearest125 rounds x to the nearest (in log) of 1, 2, 5 × 10^k.
+func nearest125(x float64) float64 {
+	best := 0.0
+	for e := -10; e <= 2; e++ {
+		for _, m := range []float64{1, 2, 5} {
+			v := m * math.Pow(10, float64(e))
+			if best == 0 || math.Abs(math.Log(v/x)) < math.Abs(math.Log(best/x)) {
+				best = v
+			}
+		}
+	}
+	return best
+}

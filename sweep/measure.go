@@ -382,7 +382,8 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 		if err != nil {
 			return Attempt{}, err
 		}
-		want, tone, err = e.planRecord(ctx, want, f, cycles)
+		var rippleBin int
+		want, tone, rippleBin, err = e.planRecord(ctx, want, f, cycles, set.SwitchingHz)
 		if err != nil {
 			return Attempt{}, err
 		}
@@ -418,10 +419,21 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 		}
 		o1 := analysis.ToneOptions{ClipLow: got.Channels[0].OffsetV - got.Channels[0].RangeV, ClipHigh: got.Channels[0].OffsetV + got.Channels[0].RangeV}
 		o2 := analysis.ToneOptions{ClipLow: got.Channels[1].OffsetV - got.Channels[1].RangeV, ClipHigh: got.Channels[1].OffsetV + got.Channels[1].RangeV}
+		var clip1, clip2 bool
+		if rippleBin > 0 && got.Points == want.Points {
+			// Clipping is judged on the raw samples, before the ripple goes.
+			clip1 = clipped(e.buf1[:got.Points], o1)
+			clip2 = clipped(e.buf2[:got.Points], o2)
+			removeBin(e.buf1[:got.Points], rippleBin)
+			removeBin(e.buf2[:got.Points], rippleBin)
+			o1.ClipLow, o1.ClipHigh, o2.ClipLow, o2.ClipHigh = 0, 0, 0, 0
+		}
 		t1, t2, err = analysis.EstimatePair(e.buf1[:got.Points], e.buf2[:got.Points], got.IntervalS, tone, o1, o2)
 		if err != nil {
 			return Attempt{}, fmt.Errorf("estimate the tone at %g Hz: %w", tone, err)
 		}
+		t1.Clipped = t1.Clipped || clip1
+		t2.Clipped = t2.Clipped || clip2
 		again := e.autorange(t1, t2, got)
 		if !again || try+1 >= maxCaptureTries {
 			break
@@ -623,25 +635,168 @@ func aliasClear(f float64, spc, cycles int, fsw float64) bool {
 // time an interval is asked for, then remembered) and returns the plan
 // with the tone frequency: c/(n·dt) for c = cycles whole cycles in n
 // samples, a shift from f of at most 1/(2·samples per cycle·cycles).
-func (e *Engine) planRecord(ctx context.Context, want instr.CaptureSettings, f float64, cycles int) (instr.CaptureSettings, float64, error) {
-	dt, ok := e.dtCache[want.IntervalS]
-	if !ok {
-		got, err := e.configure(ctx, want, f)
+func (e *Engine) planRecord(ctx context.Context, want instr.CaptureSettings, f float64, cycles int, fsw float64) (instr.CaptureSettings, float64, int, error) {
+	// With a switching frequency, other sample intervals are tried when
+	// the ripple's alias cannot be put on a bin of its own at the first.
+	base := want.IntervalS
+	var (
+		fn, fc float64
+		fb     = -1
+		fdt    float64
+		found  bool
+	)
+	for i, k := range []float64{1, 0.5, 0.2, 0.1, 0.05, 0.02, 2} {
+		w := want
+		w.IntervalS = base * k
+		dt, err := e.actualInterval(ctx, w, f)
 		if err != nil {
-			return want, 0, err
+			return want, 0, -1, err
 		}
-		dt = got.IntervalS
-		e.dtCache[want.IntervalS] = dt
-		if got.Points < want.Points && got.Points < e.cfg.MaxPoints {
-			e.cfg.MaxPoints = got.Points
+		if spc := 1 / (f * dt); spc < minPerCycleMin {
+			if i == 0 {
+				return want, 0, -1, fmt.Errorf("plan a record at %g Hz: the digitizer's interval %g s gives %.1f samples per cycle, fewer than %d", f, dt, spc, minPerCycleMin)
+			}
+			continue
+		}
+		n, c, bin, ok := recordFor(cycles, f, dt, fsw, e.cfg.MaxPoints)
+		if i == 0 || ok {
+			want.IntervalS, fn, fc, fb, fdt = w.IntervalS, float64(n), c, bin, dt
+		}
+		if ok {
+			found = true
+			break
+		}
+		if fsw == 0 {
+			break
 		}
 	}
-	if spc := 1 / (f * dt); spc < minPerCycleMin {
-		return want, 0, fmt.Errorf("plan a record at %g Hz: the digitizer's interval %g s gives %.1f samples per cycle, fewer than %d", f, dt, spc, minPerCycleMin)
+	_ = found
+	want.Points = int(fn)
+	return want, fc / (fn * fdt), fb, nil
+}
+
+// actualInterval is the sample interval the digitizer picks for want's:
+// remembered, or learned from a Configure.
+func (e *Engine) actualInterval(ctx context.Context, want instr.CaptureSettings, f float64) (float64, error) {
+	if dt, ok := e.dtCache[want.IntervalS]; ok {
+		return dt, nil
 	}
-	n, c := wholeCyclePoints(cycles, f*dt, e.cfg.MaxPoints)
-	want.Points = n
-	return want, c / (float64(n) * dt), nil
+	if want.Points > e.cfg.MaxPoints {
+		want.Points = e.cfg.MaxPoints
+	}
+	got, err := e.configure(ctx, want, f)
+	if err != nil {
+		return 0, err
+	}
+	if got.Points < want.Points && got.Points < e.cfg.MaxPoints {
+		e.cfg.MaxPoints = got.Points
+	}
+	return got.IntervalS, nil
+}
+
+// Record planning limits (engineering choices).
+const (
+	maxToneShift   = 0.005 // the tone may move by 0.5% to fit the record
+	maxRippleDenom = 1000  // largest q tried for f_sw·dt = p/q
+	maxCycleGrowth = 20    // cycles may grow to 20× to hold the ripple whole
+)
+
+// recordFor plans n samples at dt holding c whole cycles of the tone
+// c/(n·dt), near f. With a switching frequency fsw whose product with dt
+// is a fraction p/q (q ≤ 1000), n is a multiple of q so the record also
+// holds whole ripple cycles: the ripple's alias then falls exactly on a
+// DFT bin and leaks nothing into the tone's (rectangular window over
+// whole cycles: the bins are orthogonal). The search takes c from cycles
+// up, the first plan whose tone is within 0.5% of f (else the closest),
+// and skips plans whose ripple bin is the tone's or its 2nd or 3rd
+// harmonic's. Without fsw it is wholeCyclePoints.
+func recordFor(cycles int, f, dt, fsw float64, maxP int) (n int, c float64, rippleBin int, ok bool) {
+	q := 0
+	if fsw > 0 {
+		x := fsw * dt
+		for k := 1; k <= maxRippleDenom; k++ {
+			if v := x * float64(k); math.Abs(v-math.Round(v)) <= 1e-9*math.Max(1, v) {
+				q = k
+				break
+			}
+		}
+	}
+	if q == 0 {
+		n, c := wholeCyclePoints(cycles, f*dt, maxP)
+		return n, c, -1, fsw == 0
+	}
+	r := f * dt
+	bestN, bestC, bestA, bestShift := 0, 0, 0, math.Inf(1)
+	for c := cycles; c <= cycles*maxCycleGrowth; c++ {
+		n := q * int(math.Round(float64(c)/(r*float64(q))))
+		if n < q {
+			n = q
+		}
+		if n > maxP {
+			break
+		}
+		if float64(c)/float64(n) > 1/float64(minPerCycleMin) {
+			continue
+		}
+		m := int(math.Round(fsw * float64(n) * dt)) // ripple cycles in the record
+		a := m % n
+		if a > n/2 {
+			a = n - a
+		}
+		if a == c || a == 2*c || a == 3*c {
+			continue
+		}
+		shift := math.Abs(float64(c)/(float64(n)*r) - 1)
+		if shift < bestShift {
+			bestN, bestC, bestA, bestShift = n, c, a, shift
+		}
+		if shift <= maxToneShift {
+			break
+		}
+	}
+	if bestN == 0 || bestShift > 0.05 {
+		n, c := wholeCyclePoints(cycles, f*dt, maxP)
+		return n, c, -1, false
+	}
+	return bestN, float64(bestC), bestA, true
+}
+
+// clipped says whether a sample is at or beyond the window's limits.
+func clipped(x []float64, o analysis.ToneOptions) bool {
+	for _, v := range x {
+		if v <= o.ClipLow || v >= o.ClipHigh {
+			return true
+		}
+	}
+	return false
+}
+
+// removeBin subtracts from x its component on DFT bin k of len(x)
+// (0 < k ≤ len(x)/2): the ripple's alias when the record holds whole
+// ripple cycles. On whole cycles the bins are orthogonal, so the tone,
+// its harmonics and DC are untouched; the ripple no longer counts as
+// noise in the tone's SNR.
+func removeBin(x []float64, k int) {
+	n := len(x)
+	if k <= 0 || 2*k > n {
+		return
+	}
+	var re, im float64
+	w := 2 * math.Pi * float64(k) / float64(n)
+	for i, v := range x {
+		s, c := math.Sincos(w * float64(i))
+		re += v * c
+		im += v * s
+	}
+	scale := 2 / float64(n)
+	if 2*k == n {
+		scale = 1 / float64(n)
+	}
+	re, im = re*scale, im*scale
+	for i := range x {
+		s, c := math.Sincos(w * float64(i))
+		x[i] -= re*c + im*s
+	}
 }
 
 // configure sends the capture settings unless they equal the last ones

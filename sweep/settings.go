@@ -16,7 +16,7 @@ import (
 // settling and ten cycles per record.
 const (
 	DefaultStartHz       = 100.0
-	DefaultStopHz        = 20e3
+	DefaultStopHz        = 100e3
 	DefaultPerDecade     = 10
 	DefaultAmpVpp        = 0.02
 	DefaultMaxAmpVpp     = 0.1
