@@ -206,6 +206,12 @@ func ParseSession(data []byte, name string) (*Session, error) {
 			case !hasRI && !hasGP:
 				return nil, where("attempt %d has neither re/im nor gain_db/phase_deg", j+1)
 			}
+			if !finite(a.Re) || !finite(a.Im) || !finite(a.GainDB) || !finite(a.PhaseDeg) {
+				return nil, where("attempt %d: response re %g, im %g, %g dB, %g° is not finite", j+1, a.Re, a.Im, a.GainDB, a.PhaseDeg)
+			}
+			if a.FreqHz < 0 || !finite(a.FreqHz) {
+				return nil, where("attempt %d: freq_hz %g is not a positive frequency", j+1, a.FreqHz)
+			}
 			if a.GainSigmaDB < 0 || a.PhaseSigmaDeg < 0 {
 				return nil, where("attempt %d has a negative uncertainty", j+1)
 			}
@@ -248,67 +254,6 @@ func jsonErr(name string, data []byte, bom int64, err error) error {
 	default:
 		return &FileError{File: name, Offset: -1, Err: err}
 	}
-}
-
-// chosenAttempt returns the index of the attempt of p that counts: Chosen
-// when it is in range, else the best by uncertainty — among attempts
-// without a Problem if there are any, the one with the smallest phase
-// uncertainty, then the smallest gain uncertainty, then the latest.
-// For small noise σ_phase(rad) ≈ σ_gain(ratio), so either ranks the same.
-// It returns −1 when p has no attempts.
-func chosenAttempt(p Point) int {
-	if p.Chosen >= 0 && p.Chosen < len(p.Attempts) {
-		return p.Chosen
-	}
-	best := -1
-	for i, a := range p.Attempts {
-		if best < 0 {
-			best = i
-			continue
-		}
-		b := p.Attempts[best]
-		switch {
-		case (a.Problem == "") != (b.Problem == ""):
-			if a.Problem == "" {
-				best = i
-			}
-		case a.PhaseSigmaDeg != b.PhaseSigmaDeg:
-			if a.PhaseSigmaDeg < b.PhaseSigmaDeg {
-				best = i
-			}
-		case a.GainSigmaDB <= b.GainSigmaDB:
-			best = i
-		}
-	}
-	return best
-}
-
-// pointsOf returns the chosen attempt of every measured point of s as an
-// analysis.Point in ascending frequency, phase unwrapped
-// (analysis.UnwrapDeg) so margins see a continuous curve. Points with no
-// attempt yet are left out.
-func pointsOf(s *Session) []analysis.Point {
-	idx := make([]int, 0, len(s.Points))
-	for i, p := range s.Points {
-		if len(p.Attempts) > 0 {
-			idx = append(idx, i)
-		}
-	}
-	sort.SliceStable(idx, func(a, b int) bool { return s.Points[idx[a]].FreqHz < s.Points[idx[b]].FreqHz })
-	out := make([]analysis.Point, len(idx))
-	ph := make([]float64, len(idx))
-	for k, i := range idx {
-		p := s.Points[i]
-		a := p.Attempts[chosenAttempt(p)]
-		out[k] = analysis.Point{FreqHz: p.FreqHz, GainDB: a.GainDB, PhaseDeg: a.PhaseDeg, GainSigmaDB: a.GainSigmaDB, PhaseSigmaDeg: a.PhaseSigmaDeg}
-		ph[k] = a.PhaseDeg
-	}
-	if un := analysis.UnwrapDeg(ph); len(un) == len(out) {
-		for k := range out {
-			out[k].PhaseDeg = un[k]
-		}
-	}
-	return out
 }
 
 // CSV columns. ReadCSV needs the first three; WriteCSV writes them all.
@@ -368,6 +313,10 @@ func ReadCSV(r io.Reader, name string) ([]analysis.Point, error) {
 		return nil, lineErr(0, 0, "empty: no header row (want %s, %s, %s): %w", ColFreq, ColGain, ColPhase, ErrNotCSV)
 	}
 	if err != nil {
+		var pe *csv.ParseError
+		if errors.As(err, &pe) {
+			return nil, &FileError{File: name, Line: pe.Line, Column: pe.Column, Offset: -1, Err: fmt.Errorf("header row: %v: %w", pe.Err, ErrNotCSV)}
+		}
 		return nil, readErr(err)
 	}
 	headLine, _ := cr.FieldPos(0)
@@ -459,38 +408,50 @@ func ReadCSV(r io.Reader, name string) ([]analysis.Point, error) {
 // fmtFloat formats v so that strconv.ParseFloat gives v back exactly.
 func fmtFloat(v float64) string { return strconv.FormatFloat(v, 'g', -1, 64) }
 
-// WriteCSV writes the measured points of s (those with at least one
-// attempt), in ascending frequency, as RFC 4180 CSV (CRLF line ends, a
-// header row of CSVColumns). Numbers are written in full precision so
-// ReadCSV gives back the chosen attempts' values exactly (phase
-// unwrapped).
+// WriteCSV writes the chosen attempt (Session.Chosen) of every measured
+// point of s, in ascending frequency of the injected tone (Attempt.Tone),
+// as RFC 4180 CSV (CRLF line ends, a header row of CSVColumns). Numbers
+// are written in full precision so ReadCSV gives back exactly what
+// Session.Curve gives.
 func WriteCSV(w io.Writer, s *Session) error {
 	cw := csv.NewWriter(w)
 	cw.UseCRLF = true
 	if err := cw.Write(CSVColumns); err != nil {
 		return fmt.Errorf("write csv header: %w", err)
 	}
-	idx := make([]int, 0, len(s.Points))
-	for i, p := range s.Points {
-		if len(p.Attempts) > 0 {
-			idx = append(idx, i)
-		}
+	type row struct {
+		f    float64
+		i, k int
 	}
-	sort.SliceStable(idx, func(a, b int) bool { return s.Points[idx[a]].FreqHz < s.Points[idx[b]].FreqHz })
-	for _, i := range idx {
-		p := s.Points[i]
-		k := chosenAttempt(p)
-		a := p.Attempts[k]
+	rows := make([]row, 0, len(s.Points))
+	for i, p := range s.Points {
+		a, ok := s.Chosen(i)
+		if !ok {
+			continue
+		}
+		k := 0
+		for j := range p.Attempts {
+			if p.Attempts[j] == a {
+				k = j
+				break
+			}
+		}
+		rows = append(rows, row{a.Tone(p.FreqHz), i, k})
+	}
+	sort.SliceStable(rows, func(a, b int) bool { return rows[a].f < rows[b].f })
+	for _, r := range rows {
+		p := s.Points[r.i]
+		a := p.Attempts[r.k]
 		rec := []string{
-			fmtFloat(p.FreqHz), fmtFloat(a.GainDB), fmtFloat(a.PhaseDeg),
+			fmtFloat(r.f), fmtFloat(a.GainDB), fmtFloat(a.PhaseDeg),
 			fmtFloat(a.GainSigmaDB), fmtFloat(a.PhaseSigmaDeg),
 			fmtFloat(a.Re), fmtFloat(a.Im), fmtFloat(a.Ch1.SNRdB), fmtFloat(a.Ch2.SNRdB),
 			fmtFloat(a.AmpVpp), fmtFloat(a.Cycles),
 			strconv.FormatBool(p.Flagged), p.Flag,
-			strconv.Itoa(len(p.Attempts)), strconv.Itoa(k + 1),
+			strconv.Itoa(len(p.Attempts)), strconv.Itoa(r.k + 1),
 		}
 		if err := cw.Write(rec); err != nil {
-			return fmt.Errorf("write csv row for %g Hz: %w", p.FreqHz, err)
+			return fmt.Errorf("write csv row for %g Hz: %w", r.f, err)
 		}
 	}
 	cw.Flush()
