@@ -155,9 +155,9 @@ func buildSession(e exampleLoop) *Session {
 			return Attempt{
 				Started: started, Finished: now, AmpVpp: 2 * ampV,
 				IntervalS: dt, RecordLength: int(math.Round(cycles * 50)), Cycles: cycles,
-				Ch1:    ChannelReading{AmpPeakV: ampV, SNRdB: 10 * math.Log10(s1*cycles*25), NoiseV: e.noiseV, RangeV: 0.05},
-				Ch2:    ChannelReading{AmpPeakV: a2, PhaseDeg: wrap180(ph + 180), SNRdB: 10 * math.Log10(s2*cycles*25), NoiseV: e.noiseV, RangeV: 0.05},
-				Re:     real(L), Im: imag(L), GainDB: g, PhaseDeg: ph,
+				Ch1: ChannelReading{AmpPeakV: ampV, SNRdB: 10 * math.Log10(s1*cycles*25), NoiseV: e.noiseV, RangeV: 0.05},
+				Ch2: ChannelReading{AmpPeakV: a2, PhaseDeg: wrap180(ph + 180), SNRdB: 10 * math.Log10(s2*cycles*25), NoiseV: e.noiseV, RangeV: 0.05},
+				Re:  real(L), Im: imag(L), GainDB: g, PhaseDeg: ph,
 				GainSigmaDB: 20 / math.Ln10 * rel, PhaseSigmaDeg: 180 / math.Pi * rel,
 				Reason: reason,
 			}
