@@ -753,7 +753,7 @@ func (m Model) statusLines(w int) []string {
 	if !m.started.IsZero() && !m.now.IsZero() {
 		el := m.now.Sub(m.started)
 		parts = append(parts, "elapsed "+formatDuration(el))
-		if m.live() && done > 0 && n > done && el > 0 {
+		if (m.state == sweep.Running || m.state == sweep.Refining) && done > 0 && n > done && el > 0 {
 			eta := time.Duration(float64(el) / float64(done) * float64(n-done))
 			parts = append(parts, "ETA "+formatDuration(eta))
 		}
