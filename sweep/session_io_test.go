@@ -167,6 +167,10 @@ func buildSession(e exampleLoop) *Session {
 		if first.Ch2.SNRdB < 20+10*math.Log10(10*25) {
 			p.Attempts[0].Problem = "ch2 snr below min_snr_db"
 			p.Attempts = append(p.Attempts, attempt(40, "retry"))
+			if r := p.Attempts[1]; r.Ch2.SNRdB < 20+10*math.Log10(40*25) {
+				p.Attempts[1].Problem = "ch2 snr below min_snr_db"
+				p.Flagged, p.Flag = true, "ch2 snr below min_snr_db after 2 attempts"
+			}
 		}
 		s.Points = append(s.Points, p)
 	}
