@@ -285,8 +285,11 @@ func TestLoadSessionExamples(t *testing.T) {
 				if d := cmplx.Abs(complex(a.Re, a.Im)-L) / cmplx.Abs(L); d > 1e-12 {
 					t.Errorf("point %d: re/im off by %g relative", i, d)
 				}
-				if a.Problem != "" {
-					t.Errorf("point %d: chosen attempt has problem %q", i, a.Problem)
+				// The retry has 4x the cycles, so the smaller uncertainty:
+				// it is the best attempt; a problem remains only on
+				// flagged points.
+				if a != p.Attempts[len(p.Attempts)-1] || (a.Problem != "") != p.Flagged {
+					t.Errorf("point %d: chosen attempt %+v, flagged %v", i, a, p.Flagged)
 				}
 			}
 		})
