@@ -92,12 +92,19 @@ func (f DataFormat) scale() float64 {
 // BlockError reports a malformed or unexpected block.
 type BlockError struct {
 	Reason string
+	inStep bool // the bad reply was consumed to its end
 }
 
 func (e *BlockError) Error() string { return "block: " + e.Reason }
 
 func blockErr(format string, a ...any) error {
 	return &BlockError{Reason: fmt.Sprintf(format, a...)}
+}
+
+// consumedErr is a BlockError after which the reply has been read to
+// its end, so the next reply is in step.
+func consumedErr(format string, a ...any) error {
+	return &BlockError{Reason: fmt.Sprintf(format, a...), inStep: true}
 }
 
 // maxPreamble is how much ASCII text may precede the '#' of a block
@@ -217,7 +224,7 @@ func (d *decoder) readBlock(r *bufio.Reader, f DataFormat, dst []float64) error 
 			if _, err := r.ReadSlice('\n'); err != nil && !errors.Is(err, bufio.ErrBufferFull) {
 				return unexpectedEOF(err, "draining indefinite block")
 			}
-			return blockErr("indefinite block longer than %d samples of %d bytes", len(dst), size)
+			return consumedErr("indefinite block longer than %d samples of %d bytes", len(dst), size)
 		}
 		if err := r.UnreadByte(); err != nil {
 			return err
@@ -228,7 +235,7 @@ func (d *decoder) readBlock(r *bufio.Reader, f DataFormat, dst []float64) error 
 		if _, err := io.CopyN(io.Discard, r, n); err != nil {
 			return unexpectedEOF(err, fmt.Sprintf("draining block of %d bytes", n))
 		}
-		return blockErr("block holds %d bytes, want %d (%d samples of %s)", n, want, len(dst), f.Encoding)
+		return consumedErr("block holds %d bytes, want %d (%d samples of %s)", n, want, len(dst), f.Encoding)
 	}
 	return d.decode(r, f, dst)
 }
@@ -335,19 +342,19 @@ func decodeASCII(r *bufio.Reader, f DataFormat, dst []float64) error {
 			if len(t) == 0 {
 				if b == '\n' && count == 0 {
 					_ = r.UnreadByte()
-					return blockErr("ascii data: empty reply, want %d values", len(dst))
+					return consumedErr("ascii data: empty reply, want %d values", len(dst))
 				}
 				if b == '\n' && count == len(dst) {
 					return r.UnreadByte() // a trailing comma, as some instruments send
 				}
-				return skipLine(r, b, blockErr("ascii data: empty value at position %d", count+1))
+				return skipLine(r, b, consumedErr("ascii data: empty value at position %d", count+1))
 			}
 			if count >= len(dst) {
-				return skipLine(r, b, blockErr("ascii data: more than %d values", len(dst)))
+				return skipLine(r, b, consumedErr("ascii data: more than %d values", len(dst)))
 			}
 			v, err := strconv.ParseFloat(string(t), 64)
 			if err != nil {
-				return skipLine(r, b, blockErr("ascii data: value %d %q is not a number", count+1, t))
+				return skipLine(r, b, consumedErr("ascii data: value %d %q is not a number", count+1, t))
 			}
 			dst[count] = v*scale + off
 			count++
@@ -355,13 +362,13 @@ func decodeASCII(r *bufio.Reader, f DataFormat, dst []float64) error {
 			if b == '\n' {
 				_ = r.UnreadByte()
 				if count != len(dst) {
-					return blockErr("ascii data: got %d values, want %d", count, len(dst))
+					return consumedErr("ascii data: got %d values, want %d", count, len(dst))
 				}
 				return nil
 			}
 		default:
 			if n == len(tok) {
-				return skipLine(r, b, blockErr("ascii data: value %d longer than %d bytes", count+1, len(tok)))
+				return skipLine(r, b, consumedErr("ascii data: value %d longer than %d bytes", count+1, len(tok)))
 			}
 			tok[n] = b
 			n++

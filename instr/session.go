@@ -93,9 +93,10 @@ func (d deadlineReader) Read(p []byte) (int, error) {
 	if s.ctx != nil && s.ctx.Err() != nil {
 		return 0, s.ctx.Err()
 	}
-	t := time.Now().Add(s.timeout + s.extra)
+	start := time.Now()
+	t := start.Add(s.timeout + s.extra)
 	if s.brief > 0 {
-		t = time.Now().Add(s.brief)
+		t = start.Add(s.brief)
 	}
 	s.extra, s.brief = 0, 0
 	if !s.ctxDeadline.IsZero() && s.ctxDeadline.Before(t) {
@@ -104,7 +105,13 @@ func (d deadlineReader) Read(p []byte) (int, error) {
 	if err := s.c.SetReadDeadline(t); err != nil {
 		return 0, err
 	}
-	return s.c.Read(p)
+	n, err := s.c.Read(p)
+	if err != nil && isTimeout(err) && !errors.Is(err, ErrTimeout) {
+		// Name the timeout here so the layers above add their context
+		// ("block data: got 2000 of 4000 bytes") around it.
+		err = fmt.Errorf("%w: nothing for %v", ErrTimeout, t.Sub(start).Round(time.Millisecond))
+	}
+	return n, err
 }
 
 // begin prepares an operation under ctx and returns its finisher.
@@ -308,12 +315,12 @@ func (s *Session) queryBlock(ctx context.Context, cmd string, f DataFormat, dst 
 	s.extra = extra
 	if err := s.dec.readBlock(s.r, f, dst); err != nil {
 		var be *BlockError
-		if errors.As(err, &be) {
-			// The block was consumed; finish the reply to stay in step.
+		if errors.As(err, &be) && be.inStep {
+			// The bad reply was consumed; finish it to stay in step.
 			s.endReply()
 			return fmt.Errorf("query %q on %s: %w", cmd, s.Addr(), err)
 		}
-		return s.fail(ctx, "query", cmd, err)
+		return s.fail(ctx, "query", cmd, err) // out of step: the rest is flushed
 	}
 	s.endReply()
 	return nil

@@ -354,3 +354,39 @@ func TestSessionConcurrentExchanges(t *testing.T) {
 		t.Error(err)
 	}
 }
+
+// A malformed block header leaves the block's bytes unread: the session
+// must flush them so the next reply is in step (the simulator's
+// corrupt-block fault sends a letter in place of the digit count).
+func TestSessionBadHeaderFlushed(t *testing.T) {
+	ctx := context.Background()
+	data := instrtest.Real32(make([]float64, 256), false)
+	for i := range data {
+		data[i] = '\n' // newlines inside, so a line reader would be fooled too
+	}
+	s, _ := dial(t, time.Second,
+		instrtest.Step{Cmd: "TRACe:DATA? CH1", Reply: "#Z1024" + string(data) + "\n"},
+		instrtest.Step{Cmd: "*IDN?", Reply: "a,b,c,d\n"},
+	)
+	err := s.QueryBlock(ctx, "TRACe:DATA? CH1", DataFormat{Encoding: Real32}, make([]float64, 256))
+	var be *BlockError
+	if !errors.As(err, &be) || !strings.Contains(err.Error(), "got 'Z'") {
+		t.Fatalf("err = %v, want a BlockError about 'Z'", err)
+	}
+	if idn, err := s.IDN(ctx); err != nil || idn != "a,b,c,d" {
+		t.Fatalf("after a bad header IDN = %q, %v; want the next reply in step", idn, err)
+	}
+}
+
+// A block that stops half way times out with a message saying how much
+// arrived.
+func TestSessionTruncatedBlockTimeout(t *testing.T) {
+	data := instrtest.Block(instrtest.Real32(make([]float64, 1000), false))
+	s, _ := dial(t, 200*time.Millisecond,
+		instrtest.Step{Cmd: "TRACe:DATA? CH1", Reply: data[:6+2000], Hang: false},
+	)
+	err := s.QueryBlock(context.Background(), "TRACe:DATA? CH1", DataFormat{Encoding: Real32}, make([]float64, 1000))
+	if !errors.Is(err, ErrTimeout) || !strings.Contains(err.Error(), "got 2000 of 4000 bytes") {
+		t.Fatalf("err = %v, want a timeout saying 2000 of 4000 bytes arrived", err)
+	}
+}

@@ -12,6 +12,7 @@ import (
 
 	"loopsweep/instr"
 	"loopsweep/instr/instrtest"
+	"loopsweep/sim"
 )
 
 func probeSession(t *testing.T, script ...instrtest.Step) *instr.Session {
@@ -175,5 +176,39 @@ func TestProbeBadInput(t *testing.T) {
 		if !errors.As(err, &ue) || !strings.Contains(err.Error(), tc.wantSub) {
 			t.Errorf("probe %q: err = %v, want a usage error containing %q", tc.args, err, tc.wantSub)
 		}
+	}
+}
+
+// The probe against the simulated bench, a SCPI server written
+// independently of package instr from the same command list: the
+// generic profiles must drive it without an instrument error.
+func TestProbeAgainstSimulator(t *testing.T) {
+	srv, err := sim.Start(sim.Options{Listen: "127.0.0.1:0"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer srv.Close()
+	for _, tc := range []struct {
+		kind, addr string
+		want       []string
+	}{
+		{"generator", "tcp://" + srv.GenAddr(), []string{"error queue  empty", "output       off (read back)"}},
+		{"digitizer", "tcp://" + srv.DigAddr(), []string{"error queue  empty", "record       1000 points (asked 1000)", "channel 2    range"}},
+	} {
+		t.Run(tc.kind, func(t *testing.T) {
+			var out, errOut bytes.Buffer
+			err := runProbe([]string{tc.addr, "--kind", tc.kind, "--ac", "--timeout", "5s"}, &out, &errOut)
+			if err != nil {
+				t.Fatalf("probe: %v\n%s", err, out.String())
+			}
+			for _, w := range tc.want {
+				if !strings.Contains(out.String(), w) {
+					t.Errorf("output lacks %q:\n%s", w, out.String())
+				}
+			}
+		})
+	}
+	if srv.OutputOn() {
+		t.Error("the simulated generator's output is on after probe")
 	}
 }
