@@ -68,6 +68,19 @@ func (s *Session) Curve() []analysis.Point {
 		})
 	}
 	sort.SliceStable(pts, func(i, j int) bool { return pts[i].FreqHz < pts[j].FreqHz })
+	// Two points may have injected the same tone (tones move to fit
+	// whole cycles): keep the one with the smaller uncertainty.
+	out := pts[:0]
+	for _, p := range pts {
+		if n := len(out); n > 0 && p.FreqHz <= out[n-1].FreqHz*(1+1e-12) {
+			if pointScore(p) < pointScore(out[n-1]) {
+				out[n-1] = p
+			}
+			continue
+		}
+		out = append(out, p)
+	}
+	pts = out
 	ph := make([]float64, len(pts))
 	for i, p := range pts {
 		ph[i] = p.PhaseDeg
@@ -97,4 +110,8 @@ func (a Attempt) Tone(pointHz float64) float64 {
 		return a.FreqHz
 	}
 	return pointHz
+}
+
+func pointScore(p analysis.Point) float64 {
+	return attemptScore(Attempt{GainSigmaDB: p.GainSigmaDB, PhaseSigmaDeg: p.PhaseSigmaDeg})
 }

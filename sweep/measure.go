@@ -26,6 +26,9 @@ const (
 	// rangeHysteresis: a window between the wanted one and this many
 	// times it is kept, to avoid reconfiguring at every point.
 	rangeHysteresis = 3.0
+	// swingHeadroom: the window is at least this many times the raw
+	// record's largest excursion from its DC level.
+	swingHeadroom = 1.5
 	// maxCaptureTries bounds re-captures (DC level, clipping, range)
 	// within one attempt.
 	maxCaptureTries = 8
@@ -36,8 +39,14 @@ const (
 	neighbourSigmas      = 5.0
 	neighbourAllowDB     = 3.0
 	neighbourAllowDeg    = 20.0
-	refineNearRel        = 0.003 // a point within 0.3% of a crossing counts as "at" it
+	refineNearRel        = 0.01 // a tone within 1% of a crossing counts as "at" it (tones move up to 0.5%)
 	refineTriesPerTarget = 2
+	// maxRecordS caps a record's duration for retries and refinement
+	// (the plan's own cycles are always taken).
+	maxRecordS = 0.25
+	// refineFreqRel: refinement also aims at a crossing frequency known
+	// to 0.25% (one standard uncertainty).
+	refineFreqRel = 0.0025
 )
 
 func (e *Engine) interrupted() bool {
@@ -110,6 +119,8 @@ func (e *Engine) outlierLocked(i int) bool {
 	return math.Abs(pb-predP) > neighbourSigmas*sp+neighbourAllowDeg+math.Abs(pc-pa)/2
 }
 
+func sq(x float64) float64 { return x * x }
+
 // wrapNear returns deg plus the multiple of 360° that brings it nearest
 // ref.
 func wrapNear(deg, ref float64) float64 {
@@ -129,10 +140,10 @@ func (e *Engine) refineJobLocked() (job, bool) {
 	}
 	var ts []target
 	for _, g := range m.GainCrossovers {
-		ts = append(ts, target{g.FreqHz, g.SigmaDeg > e.set.RefinePMDeg})
+		ts = append(ts, target{g.FreqHz, g.SigmaDeg > e.set.RefinePMDeg || g.SigmaFreqHz > refineFreqRel*g.FreqHz})
 	}
 	for _, p := range m.PhaseCrossovers {
-		ts = append(ts, target{p.FreqHz, p.SigmaDB > e.set.RefineGMDB})
+		ts = append(ts, target{p.FreqHz, p.SigmaDB > e.set.RefineGMDB || p.SigmaFreqHz > refineFreqRel*p.FreqHz})
 	}
 	for _, t := range ts {
 		if !(t.f > 0) || !finite(t.f) {
@@ -140,7 +151,11 @@ func (e *Engine) refineJobLocked() (job, bool) {
 		}
 		near, dist := -1, math.Inf(1)
 		for i, p := range e.sess.Points {
-			if d := math.Abs(math.Log(p.FreqHz / t.f)); d < dist {
+			f := p.FreqHz
+			if a, ok := e.sess.Chosen(i); ok {
+				f = a.Tone(f)
+			}
+			if d := math.Abs(math.Log(f / t.f)); d < dist {
 				near, dist = i, d
 			}
 		}
@@ -156,13 +171,28 @@ func (e *Engine) refineJobLocked() (job, bool) {
 			return job{freq: t.f, insert: true, reason: "refine", cyclesX: 2, attempts: 1}, true
 		}
 		if t.need {
-			f := e.sess.Points[near].FreqHz
-			key := -f // re-measures of a point counted apart from insertions
-			if e.refineTry[key] >= refineTriesPerTarget {
+			// Re-measure the noisiest of the point at the crossing and its
+			// two neighbours, with the cycles its uncertainty asks for.
+			best, bestScore := -1, 0.0
+			for _, i := range []int{near - 1, near, near + 1} {
+				a, ok := e.sess.Chosen(i)
+				if !ok || e.refineTry[-e.sess.Points[i].FreqHz] >= refineTriesPerTarget {
+					continue
+				}
+				if sc := attemptScore(a); best < 0 || sc > bestScore {
+					best, bestScore = i, sc
+				}
+			}
+			if best < 0 {
 				continue
 			}
-			e.refineTry[key]++
-			return job{freq: f, reason: "refine", cyclesX: 4 << e.refineTry[key], attempts: 1}, true
+			p := e.sess.Points[best]
+			a, _ := e.sess.Chosen(best)
+			e.refineTry[-p.FreqHz]++
+			grow := math.Max(sq(a.GainSigmaDB/(e.set.RefineGMDB/2)), sq(a.PhaseSigmaDeg/(e.set.RefinePMDeg/2)))
+			grow = math.Min(math.Max(grow, 2), 1000)
+			cyc := int(math.Ceil(a.Cycles * grow / float64(e.set.Cycles)))
+			return job{freq: p.FreqHz, reason: "refine", cyclesX: max(cyc, 2), attempts: 1}, true
 		}
 	}
 	return job{}, false
@@ -227,11 +257,9 @@ func (e *Engine) runJob(ctx context.Context, j job) error {
 		}
 		e.mu.Unlock()
 	}
+	cycles := set.Cycles * cx
 	for k := 0; k < maxA; k++ {
-		cycles := set.Cycles * cx << k
-		if cycles > maxCycles {
-			cycles = maxCycles
-		}
+		cycles = min(cycles, maxCycles, max(set.Cycles, int(maxRecordS*j.freq)))
 		e.mu.Lock()
 		idx = e.findLocked(j.freq)
 		n := len(e.sess.Points[idx].Attempts)
@@ -272,6 +300,14 @@ func (e *Engine) runJob(ctx context.Context, j job) error {
 			break
 		}
 		reason = "retry: " + problem
+		// More cycles for the retry: as many as the SNR shortfall asks
+		// (noise power in the tone's bin falls as 1/cycles), at least
+		// twice, at most 16 times.
+		grow := 2.0
+		if snr := math.Min(a.Ch1.SNRdB, a.Ch2.SNRdB); snr < set.MinSNRdB {
+			grow = math.Min(16, math.Max(2, math.Pow(10, (set.MinSNRdB+3-snr)/10)))
+		}
+		cycles = int(math.Ceil(float64(cycles) * grow))
 		if e.interrupted() && k+1 < maxA {
 			// Keep what was measured; the job runs again on Resume.
 			if err := e.Save(); err != nil {
@@ -330,10 +366,11 @@ func judge(set Settings, a Attempt) (string, float64) {
 	snr := math.Min(a.Ch1.SNRdB, a.Ch2.SNRdB)
 	harm := -math.Inf(1)
 	for _, c := range []ChannelReading{a.Ch1, a.Ch2} {
-		// A harmonic counts only when it stands 6 dB above the noise in
-		// its own bin, which sits about SNR dB below the tone.
+		// A harmonic counts only when it stands 12 dB above the noise in
+		// its own bin, which sits about SNR dB below the tone (noise alone
+		// reaches that with probability e^(−10^1.2) ≈ 1e-7).
 		for _, h := range []float64{c.H2dBc, c.H3dBc} {
-			if h > -c.SNRdB+6 {
+			if h > -c.SNRdB+12 {
 				harm = math.Max(harm, h)
 			}
 		}
@@ -417,8 +454,11 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 		if err := e.cfg.Dig.Capture(ctx, e.buf1[:got.Points], e.buf2[:got.Points]); err != nil {
 			return Attempt{}, fmt.Errorf("capture %d points at %g Hz: %w", got.Points, tone, err)
 		}
-		o1 := analysis.ToneOptions{ClipLow: got.Channels[0].OffsetV - got.Channels[0].RangeV, ClipHigh: got.Channels[0].OffsetV + got.Channels[0].RangeV}
-		o2 := analysis.ToneOptions{ClipLow: got.Channels[1].OffsetV - got.Channels[1].RangeV, ClipHigh: got.Channels[1].OffsetV + got.Channels[1].RangeV}
+		o1, o2 := clipWindow(got.Channels[0]), clipWindow(got.Channels[1])
+		// The raw swing about the window's centre (ripple, noise, tone and
+		// all): the window must hold it whatever the fit later removes.
+		peak1 := swing(e.buf1[:got.Points], got.Channels[0].OffsetV)
+		peak2 := swing(e.buf2[:got.Points], got.Channels[1].OffsetV)
 		var clip1, clip2 bool
 		if rippleBin > 0 && got.Points == want.Points {
 			// Clipping is judged on the raw samples, before the ripple goes.
@@ -434,7 +474,7 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 		}
 		t1.Clipped = t1.Clipped || clip1
 		t2.Clipped = t2.Clipped || clip2
-		again := e.autorange(t1, t2, got)
+		again := e.autorange(t1, t2, [2]float64{peak1, peak2}, got)
 		if !again || try+1 >= maxCaptureTries {
 			break
 		}
@@ -451,7 +491,7 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 			h /= k
 		}
 	}
-	return Attempt{
+	a := Attempt{
 		Started:       started,
 		Finished:      e.cfg.Now(),
 		FreqHz:        tone,
@@ -467,7 +507,36 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 		PhaseDeg:      wrapDeg(cmplx.Phase(h) * 180 / math.Pi),
 		GainSigmaDB:   r.GainSigmaDB,
 		PhaseSigmaDeg: r.PhaseSigmaDeg,
-	}, nil
+	}
+	sanitize(&a)
+	return a, nil
+}
+
+// sanitize replaces values JSON cannot hold (NaN, ±Inf: a channel with
+// no tone at all) so the session stays saveable; the attempt then fails
+// the judge on its SNR.
+func sanitize(a *Attempt) {
+	for _, p := range []*float64{&a.Re, &a.Im, &a.GainDB, &a.PhaseDeg, &a.GainSigmaDB, &a.PhaseSigmaDeg, &a.Cycles} {
+		if !finite(*p) {
+			*p = 0
+		}
+	}
+	if a.GainSigmaDB == 0 && (a.Re == 0 && a.Im == 0) {
+		a.GainSigmaDB, a.PhaseSigmaDeg = 1e6, 180
+	}
+	for _, c := range []*ChannelReading{&a.Ch1, &a.Ch2} {
+		for _, p := range []*float64{&c.AmpPeakV, &c.PhaseDeg, &c.DCV, &c.NoiseV, &c.H2dBc, &c.H3dBc} {
+			if !finite(*p) {
+				*p = 0
+			}
+		}
+		switch {
+		case math.IsNaN(c.SNRdB) || math.IsInf(c.SNRdB, -1):
+			c.SNRdB = -200
+		case math.IsInf(c.SNRdB, 1):
+			c.SNRdB = 200
+		}
+	}
 }
 
 // wrapDeg wraps an angle in degrees to (−180, 180].
@@ -648,6 +717,9 @@ func (e *Engine) planRecord(ctx context.Context, want instr.CaptureSettings, f f
 	for i, k := range []float64{1, 0.5, 0.2, 0.1, 0.05, 0.02, 2} {
 		w := want
 		w.IntervalS = base * k
+		if i > 0 && 1/(f*w.IntervalS) < 1.5*minPerCycleMin {
+			continue
+		}
 		dt, err := e.actualInterval(ctx, w, f)
 		if err != nil {
 			return want, 0, -1, err
@@ -761,6 +833,28 @@ func recordFor(cycles int, f, dt, fsw float64, maxP int) (n int, c float64, ripp
 	return bestN, float64(bestC), bestA, true
 }
 
+// clipEdge is the fraction of the window, at each edge, where a sample
+// counts as clipped: an ADC's top code sits one LSB inside the window
+// (2^-7 of the range at 8 bits), so the exact limit is never read.
+const clipEdge = 0.01
+
+// clipWindow is the clip check for a channel's window.
+func clipWindow(ch instr.ChannelSettings) analysis.ToneOptions {
+	return analysis.ToneOptions{
+		ClipLow:  ch.OffsetV - ch.RangeV*(1-clipEdge),
+		ClipHigh: ch.OffsetV + ch.RangeV*(1-clipEdge),
+	}
+}
+
+// swing is the largest |x − centre| of a record, volts.
+func swing(x []float64, centre float64) float64 {
+	m := 0.0
+	for _, v := range x {
+		m = math.Max(m, math.Abs(v-centre))
+	}
+	return m
+}
+
 // clipped says whether a sample is at or beyond the window's limits.
 func clipped(x []float64, o analysis.ToneOptions) bool {
 	for _, v := range x {
@@ -812,9 +906,6 @@ func (e *Engine) configure(ctx context.Context, want instr.CaptureSettings, f fl
 	if !(got.IntervalS > 0) || got.Points <= 0 {
 		return got, fmt.Errorf("configure the digitizer for %g Hz: it reported %d points at %g s", f, got.Points, got.IntervalS)
 	}
-	if spc := 1 / (f * got.IntervalS); spc < minPerCycleMin {
-		return got, fmt.Errorf("configure the digitizer for %g Hz: its interval %g s gives %.1f samples per cycle, fewer than %d", f, got.IntervalS, spc, minPerCycleMin)
-	}
 	e.dtCache[want.IntervalS] = got.IntervalS
 	if got.Points > len(e.buf1) {
 		e.buf1 = make([]float64, got.Points)
@@ -841,11 +932,13 @@ func wholeCyclePoints(cycles int, r float64, maxP int) (int, float64) {
 // reading and says whether this one must be taken again: the DC level was
 // just learned, a channel clipped (and a larger range remains), or a
 // window was far too large for the tone.
-func (e *Engine) autorange(t1, t2 analysis.Tone, got instr.CaptureSettings) bool {
+func (e *Engine) autorange(t1, t2 analysis.Tone, swings [2]float64, got instr.CaptureSettings) bool {
 	again := false
 	for c, t := range [2]analysis.Tone{t1, t2} {
 		ch := got.Channels[c]
 		want := math.Max(rangeHeadroom*t.AmpPeak+6*t.NoiseRMS, e.cfg.MinRangeV)
+		// Everything else on the probe (ripple, noise peaks) must fit too.
+		want = math.Max(want, swingHeadroom*(swings[c]-math.Abs(t.DC-ch.OffsetV)))
 		off := ch.OffsetV
 		if e.cfg.FixedOffset && !ch.AC && !e.cfg.ACCoupling {
 			// The window cannot move: it must hold the DC level too.

@@ -26,7 +26,7 @@ const (
 	DefaultSettleMin     = 10 * time.Millisecond
 	DefaultCycles        = 10
 	DefaultMinPerCycle   = 20
-	DefaultMinSNRdB      = 20.0
+	DefaultMinSNRdB      = 25.0
 	DefaultMaxAttempts   = 3
 	DefaultRefinePMDeg   = 0.5
 	DefaultRefineGMDB    = 0.2
