@@ -16,6 +16,7 @@ import (
 	"time"
 
 	"loopsweep/instr"
+	"loopsweep/sim"
 	"loopsweep/sweep"
 )
 
@@ -185,6 +186,19 @@ func runSweep(args []string, stdout, stderr io.Writer) error {
 		return err
 	}
 	defer b.Close()
+	if b.simFsw > 0 && resumed == nil {
+		// The simulated converter's switching frequency is known: use it
+		// (and stop at half of it) unless the flags say otherwise.
+		if !set["switching"] {
+			s.SwitchingHz = b.simFsw
+		}
+		if !set["stop"] && len(s.Frequencies) == 0 {
+			s.StopHz = b.simFsw / 2
+		}
+		if err := s.Validate(); err != nil {
+			return settingError(err)
+		}
+	}
 	if b.maxVpp > 0 && s.MaxAmpVpp > b.maxVpp {
 		return badInput("--max-amp %g Vpp is above the generator profile's limit of %g Vpp", s.MaxAmpVpp, b.maxVpp)
 	}
@@ -452,6 +466,7 @@ type bench struct {
 	fixedOff  bool
 	maxPoints int
 	maxVpp    float64 // the generator profile's limit, 0 when none
+	simFsw    float64 // the simulated converter's switching frequency
 	closers   []func() error
 }
 
@@ -554,8 +569,13 @@ func openBench(f sweepFlags) (*bench, error) {
 	b := &bench{}
 	genAddr, digAddr := f.gen, f.dig
 	if f.sim {
-		// The simulated bench (package sim) is wired in when it lands.
-		return nil, badInput("--sim: the simulated bench is not in this build yet")
+		srv, err := sim.Start(sim.Options{Listen: "127.0.0.1:0", Scenario: f.scenario, Load: f.load})
+		if err != nil {
+			return nil, badInput("--sim: %v", err)
+		}
+		b.closers = append(b.closers, srv.Close)
+		b.simFsw = srv.Scenario().SwitchingHz
+		genAddr, digAddr = srv.GenAddr(), srv.DigAddr()
 	}
 	if err := openInstruments(b, genAddr, digAddr, f.genProfile, f.digProfile, f.timeout); err != nil {
 		b.Close()
