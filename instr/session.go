@@ -41,7 +41,9 @@ const maxErrors = 64
 // newline, replies end at a newline, and blocks are read by their
 // header's byte count. Every read and write has a deadline: the session
 // timeout (an idle timeout: it restarts whenever bytes arrive) or the
-// context's deadline, whichever is sooner. A Session may be shared by
+// context's deadline, whichever is sooner. Cancelling the context
+// interrupts a TCP exchange at once; serial and usbtmc reads cannot be
+// interrupted and end at their deadline. A Session may be shared by
 // goroutines: each exchange (a write, or a command and its whole reply)
 // runs alone, so turning a generator's output off from a second
 // goroutine waits for the exchange in flight and never interleaves with
