@@ -563,8 +563,14 @@ func encodeRecord(codes []int16, cs chanSetup, format string, swapped bool) resu
 	body := out[len(out) : len(out)+nb]
 	switch format {
 	case "REAL,32":
+		if swapped {
+			for j, q := range codes {
+				binary.LittleEndian.PutUint32(body[4*j:], math.Float32bits(float32(float64(q)*lsb+off)))
+			}
+			break
+		}
 		for j, q := range codes {
-			order.PutUint32(body[4*j:], math.Float32bits(float32(float64(q)*lsb+off)))
+			binary.BigEndian.PutUint32(body[4*j:], math.Float32bits(float32(float64(q)*lsb+off)))
 		}
 	case "INT,16":
 		for j, q := range codes {

@@ -4,6 +4,8 @@ import (
 	"math"
 	"math/cmplx"
 	"math/rand/v2"
+	"runtime"
+	"sync"
 )
 
 // bench is the shared physical state behind both instruments: the
@@ -41,10 +43,12 @@ type seg struct {
 }
 
 // trans is the output's deviation from the new steady state after a
-// change at time at: Re{e0·e^((−σ+jωd)(t−at))}.
+// change at time at: Re{e0·e^((−σ+jωd)(t−at))}, with e0 chosen so that
+// the output and its slope are continuous at the change (only the
+// output for a real pole).
 type trans struct {
 	at float64
-	e0 float64
+	e0 complex128
 }
 
 const noiseTableBits = 20
@@ -62,9 +66,9 @@ func newBench(sc *Scenario, op OperatingPoint, seed int64) *bench {
 // setPoint changes the plant (scenario or load) at time t; the output
 // settles from where it was.
 func (b *bench) setPoint(sc *Scenario, op OperatingPoint, t float64) {
-	yBefore := 0.0
+	var y0, d0 float64
 	if b.sc != nil {
-		yBefore = b.yAC(t)
+		y0, d0 = b.yAC(t), b.slope(t)
 	}
 	b.sc, b.op = sc, op
 	b.loop = sc.loop(op.LoadOhm)
@@ -72,7 +76,44 @@ func (b *bench) setPoint(sc *Scenario, op OperatingPoint, t float64) {
 	l0 := b.loop.eval(complex(0, 2*math.Pi*1e-3))
 	b.t0 = real(l0 / (1 + l0))
 	b.seg.y = b.phasor(b.seg)
-	b.tr = trans{at: t, e0: yBefore - b.steady(b.seg, t)}
+	b.startTransient(t, y0, d0)
+}
+
+// startTransient sets the transient so that the output (y0) and its
+// slope (d0, V/s) just before the change at t carry on, within a bound
+// of twice the larger steady amplitude so a light damping cannot make
+// it absurd.
+func (b *bench) startTransient(t, y0, d0 float64) {
+	a := y0 - b.steady(b.seg, t)
+	var c float64
+	if b.wd > 0 {
+		c = -((d0 - b.steadySlope(b.seg, t)) + b.sigma*a) / b.wd
+	}
+	e := complex(a, c)
+	if lim := 2 * (cmplx.Abs(b.seg.y) + math.Abs(y0)); cmplx.Abs(e) > lim && cmplx.Abs(e) > 0 {
+		e *= complex(lim/cmplx.Abs(e), 0)
+	}
+	b.tr = trans{at: t, e0: e}
+}
+
+// steadySlope is d/dt of steady, V/s.
+func (b *bench) steadySlope(sg seg, t float64) float64 {
+	if !sg.on {
+		return 0
+	}
+	w := 2 * math.Pi * sg.freqHz
+	th := sg.phase + w*(t-sg.start)
+	return real(complex(0, w) * sg.y * cmplx.Exp(complex(0, th)))
+}
+
+// slope is d/dt of yAC, V/s.
+func (b *bench) slope(t float64) float64 {
+	d := b.steadySlope(b.seg, t)
+	if tau := t - b.tr.at; tau >= 0 && b.tr.e0 != 0 {
+		p := complex(-b.sigma, b.wd)
+		d += real(b.tr.e0*p*cmplx.Exp(p*complex(tau, 0))) * b.sc.Meas.TransientGain
+	}
+	return d
 }
 
 // phasor is the output's complex amplitude Y = −T(jω)·A for the sine
@@ -99,7 +140,8 @@ func (b *bench) transient(t float64) float64 {
 	if tau < 0 || b.tr.e0 == 0 {
 		return 0
 	}
-	return b.tr.e0 * b.sc.Meas.TransientGain * math.Exp(-b.sigma*tau) * math.Cos(b.wd*tau)
+	p := complex(-b.sigma, b.wd)
+	return real(b.tr.e0*cmplx.Exp(p*complex(tau, 0))) * b.sc.Meas.TransientGain
 }
 
 // yAC is the output's AC part (before the nonlinearity) at time t.
@@ -113,12 +155,12 @@ func (b *bench) setGenerator(t float64, on bool, freqHz, ampV, offV float64) {
 	if old.on == on && old.freqHz == freqHz && old.ampV == ampV && old.offV == offV {
 		return
 	}
-	yBefore := b.yAC(t)
+	y0, d0 := b.yAC(t), b.slope(t)
 	ph := old.phase + 2*math.Pi*old.freqHz*(t-old.start)
 	ph = math.Mod(ph, 2*math.Pi)
 	b.seg = seg{start: t, on: on, freqHz: freqHz, ampV: ampV, offV: offV, phase: ph}
 	b.seg.y = b.phasor(b.seg)
-	b.tr = trans{at: t, e0: yBefore - b.steady(b.seg, t)}
+	b.startTransient(t, y0, d0)
 }
 
 // chanSetup is one digitizer channel's front end.
@@ -139,7 +181,33 @@ func (c chanSetup) lsb() float64 { return c.rangeV / float64(int(1)<<(c.bits-1))
 // n1 and n2 are where the channels start reading the noise table (pick
 // them with noiseOffsets). record only reads b, so it may run on a copy
 // taken when the acquisition started.
+//
+// Long records are generated in parallel pieces (every block of 1024
+// samples restarts from exact phasors, so the pieces are independent).
 func (b *bench) record(c1, c2 []int16, t0, dt float64, s1, s2 chanSetup, n1, n2 int) {
+	const minPiece = 1 << 16
+	workers := min(runtime.GOMAXPROCS(0), len(c1)/minPiece)
+	if workers < 2 {
+		b.recordPiece(c1, c2, 0, t0, dt, s1, s2, n1, n2)
+		return
+	}
+	per := (len(c1)/workers + 1023) &^ 1023
+	var wg sync.WaitGroup
+	for lo := 0; lo < len(c1); lo += per {
+		hi := min(lo+per, len(c1))
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			b.recordPiece(c1[lo:hi], c2[lo:hi], lo, t0, dt, s1, s2, n1, n2)
+		}()
+	}
+	wg.Wait()
+}
+
+// recordPiece fills samples first.. of the record into c1 and c2.
+func (b *bench) recordPiece(c1, c2 []int16, first int, t0, dt float64, s1, s2 chanSetup, n1, n2 int) {
+	n1, n2 = n1+first, n2+first
+	t0 += float64(first) * dt
 	sc := b.sc
 	vout := sc.VoutV()
 	sg := b.seg
@@ -159,7 +227,7 @@ func (b *bench) record(c1, c2 []int16, t0, dt float64, s1, s2 chanSetup, n1, n2 
 	wr := 2 * math.Pi * sc.SwitchingHz
 	ripA := sc.Meas.RippleVpp / 2
 	sigmaN := float32(sc.Meas.NoiseVrms)
-	trE := b.tr.e0 * sc.Meas.TransientGain
+	trE := b.tr.e0 * complex(sc.Meas.TransientGain, 0)
 	trDecay := cmplx.Exp(complex(-b.sigma*dt, b.wd*dt))
 	rot := cmplx.Exp(complex(0, w*dt))
 	rotR := cmplx.Exp(complex(0, wr*dt))
@@ -174,6 +242,8 @@ func (b *bench) record(c1, c2 []int16, t0, dt float64, s1, s2 chanSetup, n1, n2 
 	if !on {
 		amp = 0
 	}
+	yr, yi := real(sg.y), imag(sg.y)
+	invSat, sq, k3 := 1/sat, 1/(8*sat), 1/(3*sat*sat)
 	const block = 1024
 	for start := 0; start < len(c1); start += block {
 		end := min(start+block, len(c1))
@@ -181,40 +251,85 @@ func (b *bench) record(c1, c2 []int16, t0, dt float64, s1, s2 chanSetup, n1, n2 
 		// exact phasors at the block start; recursion inside the block
 		th := sg.phase + w*(t-sg.start)
 		zt := cmplx.Exp(complex(0, th))
-		zy := sg.y * zt
 		zr := cmplx.Exp(complex(0, wr*t))
 		var ze complex128
 		if tau := t - b.tr.at; tau >= 0 && trE != 0 {
-			ze = complex(trE*math.Exp(-b.sigma*tau), 0) * cmplx.Exp(complex(0, b.wd*tau))
+			ze = trE * cmplx.Exp(complex(-b.sigma*tau, b.wd*tau))
 		}
+		// a transient below a nanovolt is over
+		withTr := cmplx.Abs(ze) > 1e-9
 		for i := start; i < end; i++ {
-			u := real(zy) + real(ze)
-			// soft limit with a small even term: Vs·tanh(u/Vs) + u²/(8·Vs),
-			// tanh by its (3,2) rational approximation, exact at ±3
-			x := u / sat
-			var g float64
-			switch {
-			case x > 3:
-				g = 1
-			case x < -3:
-				g = -1
-			default:
-				x2 := x * x
-				g = x * (27 + x2) / (27 + 9*x2)
+			ct, st := real(zt), imag(zt)
+			u := yr*ct - yi*st
+			if withTr {
+				u += real(ze)
+				ze *= trDecay
 			}
-			y := sat*g + u*u/(8*sat) + ripA*imag(zr)
-			vx := dcX + y + amp*real(zt) + float64(sigmaN*noise[(n1+i)&mask])
+			// softLimit inlined for the common small-signal case
+			var y float64
+			// below |x| = 0.1 the cubic term of tanh suffices (the next,
+			// 2x⁵/15, is under 1.4e-6 relative)
+			if x := u * invSat; x < 0.1 && x > -0.1 {
+				y = u * (1 + u*(sq-u*k3))
+			} else {
+				y = softLimit(u, sat)
+			}
+			y += ripA * imag(zr)
+			vx := dcX + y + amp*ct + float64(sigmaN*noise[(n1+i)&mask])
 			vy := dcY + y + float64(sigmaN*noise[(n2+i)&mask])
-			q1 := math.RoundToEven((vx - s1.offsetV) * inv1)
-			q2 := math.RoundToEven((vy - s2.offsetV) * inv2)
-			c1[i] = int16(math.Max(lo1, math.Min(hi1, q1)))
-			c2[i] = int16(math.Max(lo2, math.Min(hi2, q2)))
+			// quantise inlined: half up, clipped
+			q1 := (vx - s1.offsetV) * inv1
+			if q1 >= hi1 {
+				q1 = hi1
+			} else if q1 <= lo1 {
+				q1 = lo1
+			}
+			q2 := (vy - s2.offsetV) * inv2
+			if q2 >= hi2 {
+				q2 = hi2
+			} else if q2 <= lo2 {
+				q2 = lo2
+			}
+			c1[i] = int16(int32(q1+65536.5) - 65536)
+			c2[i] = int16(int32(q2+65536.5) - 65536)
 			zt *= rot
-			zy *= rot
 			zr *= rotR
-			ze *= trDecay
 		}
 	}
+}
+
+// softLimit is the output stage's mild nonlinearity:
+// Vs·tanh(u/Vs) + u²/(8·Vs), tanh by its series below |x| = 0.25
+// (error under 1e-6 relative) and by the (3,2) rational approximation
+// x(27+x²)/(27+9x²) above, which is exact (±1) at ±3 and held beyond.
+func softLimit(u, sat float64) float64 {
+	x := u / sat
+	var g float64
+	switch {
+	case x > 3:
+		g = 1
+	case x < -3:
+		g = -1
+	case x < 0.25 && x > -0.25:
+		x2 := x * x
+		g = x * (1 - x2*(1.0/3-x2*(2.0/15-x2*17.0/315)))
+	default:
+		x2 := x * x
+		g = x * (27 + x2) / (27 + 9*x2)
+	}
+	return sat*g + u*u/(8*sat)
+}
+
+// quantise rounds v (in codes) half up to the nearest integer, clipped
+// to [lo, hi].
+func quantise(v, lo, hi float64) int16 {
+	if v >= hi {
+		return int16(hi)
+	}
+	if v <= lo {
+		return int16(lo)
+	}
+	return int16(int32(v+65536.5) - 65536)
 }
 
 // noiseOffsets picks the two channels' starting points in the noise table.
