@@ -390,3 +390,31 @@ func TestSessionTruncatedBlockTimeout(t *testing.T) {
 		t.Fatalf("err = %v, want a timeout saying 2000 of 4000 bytes arrived", err)
 	}
 }
+
+func TestOpenErrorsNameTheAddress(t *testing.T) {
+	// A port nobody listens on: take a free one and close it.
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	addr := "tcp://" + ln.Addr().String()
+	ln.Close()
+	if _, err := Open(addr, Options{}); err == nil || !strings.Contains(err.Error(), addr) {
+		t.Errorf("Open(%s) = %v, want an error naming it", addr, err)
+	}
+	if _, err := Open("serial:///nonexistent/tty", Options{}); err == nil || !strings.Contains(err.Error(), "/nonexistent/tty") {
+		t.Errorf("Open(missing serial device) = %v", err)
+	}
+	var ae *AddressError
+	if _, err := Open("bogus://x", Options{}); !errors.As(err, &ae) {
+		t.Errorf("Open(bogus) = %v, want *AddressError", err)
+	}
+}
+
+func TestQueryNumberNamesCommand(t *testing.T) {
+	s, _ := dial(t, time.Second, instrtest.Step{Cmd: "SENSe:SWEep:TINTerval?", Reply: "fast\n"})
+	_, err := s.QueryNumber(context.Background(), "SENSe:SWEep:TINTerval?")
+	if err == nil || !strings.Contains(err.Error(), `"SENSe:SWEep:TINTerval?"`) || !strings.Contains(err.Error(), `"fast"`) {
+		t.Fatalf("err = %v, want the command and the reply named", err)
+	}
+}
