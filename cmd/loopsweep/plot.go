@@ -71,6 +71,9 @@ func runPlot(args []string, stdout, stderr io.Writer) error {
 	if *out == "" {
 		return badInput("-o: give the output file (.svg, .png or .pdf)")
 	}
+	if err := notAnInput(*out, files); err != nil {
+		return err
+	}
 	format := strings.ToLower(strings.TrimPrefix(filepath.Ext(*out), "."))
 	switch format {
 	case "svg", "png", "pdf":
@@ -90,9 +93,6 @@ func runPlot(args []string, stdout, stderr io.Writer) error {
 		if !(f.v >= 2 && f.v <= 200) {
 			return badInput("%s %v cm: want 2 to 200 cm", f.name, f.v)
 		}
-	}
-	if err := notAnInput(*out, files); err != nil {
-		return err
 	}
 	var ins []*input
 	for _, f := range files {
