@@ -115,6 +115,7 @@ func badAddr(s, format string, a ...any) error {
 //
 //	tcp://HOST[:PORT]                       raw socket, port 5025 by default
 //	HOST:PORT                               the same
+//	192.168.1.20, scope.lab.example         an IP address or dotted host name: port 5025
 //	serial:///dev/ttyUSB0?baud=115200&data=8&parity=none&stop=1&flow=none
 //	usbtmc:///dev/usbtmc0
 //	/dev/ttyUSB0, /dev/usbtmc0              a device path: usbtmc when the
@@ -150,6 +151,10 @@ func ParseAddress(s string) (Address, error) {
 	}
 	if host, port, err := net.SplitHostPort(t); err == nil {
 		return tcpAddr(s, host, port)
+	}
+	if net.ParseIP(t) != nil || strings.Contains(t, ".") && !strings.ContainsAny(t, "/:?#") {
+		// A bare IP address or dotted host name: the raw socket port.
+		return tcpAddr(s, t, "")
 	}
 	return Address{}, badAddr(s, "unknown form; expected tcp://HOST:PORT, serial:///dev/DEVICE?baud=N, usbtmc:///dev/usbtmcN, a device path or a VISA TCPIP::HOST::PORT::SOCKET / ASRL…::INSTR name")
 }
