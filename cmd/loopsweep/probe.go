@@ -28,7 +28,7 @@ offset the instrument actually chose, and each channel's minimum and
 maximum in volts.
 
 ADDRESS forms:
-  tcp://HOST[:PORT]   HOST:PORT   TCPIP[n]::HOST::PORT::SOCKET   (port 5025 by default)
+  tcp://HOST[:PORT]   HOST:PORT   192.168.1.20   TCPIP[n]::HOST::PORT::SOCKET   (port 5025 by default)
   serial:///dev/ttyUSB0?baud=115200&data=8&parity=none&stop=1&flow=none
   ASRL/dev/ttyUSB0::INSTR   ASRL1::INSTR   /dev/ttyUSB0
   usbtmc:///dev/usbtmc0   /dev/usbtmc0`,
