@@ -149,10 +149,41 @@ func TestTUIEndToEnd(t *testing.T) {
 	if !regexp.MustCompile(`PM\s+-?\d+\.\d° ± `).MatchString(s) {
 		t.Errorf("browse screen has no phase margin:\n%s", s)
 	}
+	if strings.Contains(s, "Before you connect") {
+		t.Error("safety note shown again after 'd' dismissed it")
+	}
 	b.send("q")
 	s = b.waitFor("open to exit", regexp.MustCompile(`LOOPSWEEP-EXIT=\d+`), 10*time.Second)
 	if !strings.Contains(s, "LOOPSWEEP-EXIT=0") {
 		t.Errorf("open: exit status not 0:\n%s", s)
+	}
+
+	// Continue the session on the simulated bench: the plan is complete,
+	// so the engine waits; re-measuring point 1 adds at least one
+	// attempt (more if the new one needs retries), shown in its details
+	// and saved in the file.
+	b.name = "continue"
+	line = fmt.Sprintf("env LOOPSWEEP_CONFIG_DIR=%s TERM=xterm-256color %s open --sim %s; echo LOOPSWEEP-EXIT=$?; sleep 60", cfg, bin, session)
+	if out, err := b.tmux("new-session", "-d", "-s", b.name, "-x", "120", "-y", "40", line); err != nil {
+		t.Fatalf("tmux new-session: %v: %s", err, out)
+	}
+	b.waitFor("the continued session done", regexp.MustCompile(`DONE · point`), 30*time.Second)
+	b.send("g")
+	s = b.waitFor("point 1 selected", regexp.MustCompile(`point 1  100 Hz  attempt \d+ of \d+`), 10*time.Second)
+	var before int
+	fmt.Sscanf(regexp.MustCompile(`attempt \d+ of (\d+)`).FindStringSubmatch(s)[1], "%d", &before)
+	b.send("r")
+	b.waitFor("point 1 re-measured", regexp.MustCompile(fmt.Sprintf(`point 1  100 Hz  attempt \d+ of (%d|%d|%d|%d)\b`, before+1, before+2, before+3, before+4)), 30*time.Second)
+	// q asks if the re-measure is still running; y then stops.
+	b.send("q")
+	if s = b.waitFor("the question or the exit", regexp.MustCompile(`quit\? \(y/n\)|LOOPSWEEP-EXIT=\d+`), 20*time.Second); strings.Contains(s, "(y/n)") {
+		b.send("y")
+	}
+	b.waitFor("the continued session to exit", regexp.MustCompile(`LOOPSWEEP-EXIT=\d+`), 20*time.Second)
+	if cont, err := sweep.LoadSession(session); err != nil {
+		t.Errorf("continued session: %v", err)
+	} else if n := len(cont.Points[0].Attempts); n <= before {
+		t.Errorf("point 1 has %d attempts after re-measuring, want more than %d", n, before)
 	}
 }
 
