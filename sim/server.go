@@ -173,17 +173,21 @@ func Start(opt Options) (*Server, error) {
 		gl.Close()
 		return nil, fmt.Errorf("digitizer listen %s: %w", daddr, err)
 	}
-	s := &Server{
-		epoch: time.Now(), sc: sc, op: op, faults: opt.Faults,
-		conns: map[net.Conn]bool{}, gl: gl, dl: dl,
-	}
-	s.b = newBench(sc, op, opt.Seed)
-	s.resetGen()
-	s.resetDig()
+	s := newServer(sc, op, opt)
+	s.gl, s.dl = gl, dl
 	s.wg.Add(2)
 	go s.accept(gl, true)
 	go s.accept(dl, false)
 	return s, nil
+}
+
+// newServer is the instruments' state without listeners.
+func newServer(sc *Scenario, op OperatingPoint, opt Options) *Server {
+	s := &Server{epoch: time.Now(), sc: sc, op: op, faults: opt.Faults, conns: map[net.Conn]bool{}}
+	s.b = newBench(sc, op, opt.Seed)
+	s.resetGen()
+	s.resetDig()
+	return s
 }
 
 // GenAddr is the generator's address, "127.0.0.1:PORT".
