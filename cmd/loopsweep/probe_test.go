@@ -5,6 +5,7 @@ import (
 	"context"
 	"errors"
 	"os"
+	"os/exec"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -210,5 +211,49 @@ func TestProbeAgainstSimulator(t *testing.T) {
 	}
 	if srv.OutputOn() {
 		t.Error("the simulated generator's output is on after probe")
+	}
+}
+
+// The probe over a real serial device: socat links a pseudo-terminal to
+// the simulated digitizer's socket, so go.bug.st/serial opens a device
+// path and 80 kB binary blocks (with 0x0A bytes in them) cross a tty.
+// Skipped only when socat is missing (CI installs it).
+func TestProbeOverSerialToSimulator(t *testing.T) {
+	bin, err := exec.LookPath("socat")
+	if err != nil {
+		t.Skip("socat not installed")
+	}
+	srv, err := sim.Start(sim.Options{Listen: "127.0.0.1:0"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer srv.Close()
+	link := filepath.Join(t.TempDir(), "tty")
+	cmd := exec.Command(bin, "pty,raw,echo=0,link="+link, "tcp:"+srv.DigAddr())
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	defer func() {
+		cmd.Process.Kill()
+		cmd.Wait()
+	}()
+	for i := 0; ; i++ {
+		if _, err := os.Stat(link); err == nil {
+			break
+		}
+		if i > 100 {
+			t.Fatal("socat made no pty")
+		}
+		time.Sleep(20 * time.Millisecond)
+	}
+	var out, errOut bytes.Buffer
+	err = runProbe([]string{"serial://" + link + "?baud=115200", "--kind", "digitizer", "--points", "20000", "--ac", "--range", "20m"}, &out, &errOut)
+	if err != nil {
+		t.Fatalf("probe: %v\n%s", err, out.String())
+	}
+	for _, w := range []string{"record       20000 points (asked 20000)", "channel 1    range ±20 mV around 0 V AC", "error queue  empty"} {
+		if !strings.Contains(out.String(), w) {
+			t.Errorf("output lacks %q:\n%s", w, out.String())
+		}
 	}
 }
