@@ -564,6 +564,25 @@ func (m Model) key(k tea.KeyMsg) (Model, tea.Cmd) {
 var legend = fmt.Sprintf("plot: ⠒ curve (good points) · %c retried · %c flagged · %c selected · %c measuring · %c crossover · ┊ ±σ where large",
 	glyphRetried, glyphFlagged, glyphCursor, glyphActive, glyphCrossover)
 
+// wrapList breaks a list joined by sep into lines of at most w cells,
+// breaking only at separators.
+func wrapList(s, sep string, w int) []string {
+	var out []string
+	cur := ""
+	for _, item := range strings.Split(s, sep) {
+		switch {
+		case cur == "":
+			cur = item
+		case len([]rune(cur+sep+item)) <= w:
+			cur += sep + item
+		default:
+			out = append(out, cur)
+			cur = item
+		}
+	}
+	return append(out, cur)
+}
+
 // View returns the frame drawn at the last tick or key.
 func (m Model) View() string { return m.frame }
 
@@ -643,7 +662,9 @@ func (m *Model) draw() {
 	m.help.Width = w
 	helpView := m.help.View(m.keys)
 	if m.help.ShowAll {
-		helpView += "\n" + m.st.dim.Render(legend)
+		for _, l := range wrapList(legend, " · ", w) {
+			helpView += "\n" + m.st.dim.Render(l)
+		}
 	}
 	switch m.mode {
 	case modeForm:
@@ -771,7 +792,7 @@ func (m Model) statusLines(w int) []string {
 		line2 = m.st.bad.Render(m.flash)
 	case m.flash != "":
 		line2 = m.st.good.Render(m.flash)
-	case m.stateMsg != "" && m.state != sweep.Running && !strings.EqualFold(m.stateMsg, m.stateText()):
+	case m.stateMsg != "" && (m.state == sweep.Failed || m.state == sweep.Stopped):
 		line2 = m.stateText() + ": " + m.stateMsg
 	default:
 		in := m.sess.Instruments
