@@ -384,9 +384,14 @@ func writeAnalysis(w io.Writer, in *input, d derivedJSON, tg targets) error {
 				flag += ": " + pj.Flag
 			}
 		}
-		fmt.Fprintf(tw, "%.5g\t%.3f\t%.2f\t%.3f\t%.2f\t%.2f\t%.2f\t%d\t%s\t\n", p.FreqHz,
+		closed, sens := "-", "-" // a ratio H has no closed loop or sensitivity
+		if in.sum.Measure != sweep.MeasureRatio {
+			closed = fmt.Sprintf("%.2f", analysis.DBFromRatio(cmplx.Abs(p.T)))
+			sens = fmt.Sprintf("%.2f", analysis.DBFromRatio(cmplx.Abs(p.S)))
+		}
+		fmt.Fprintf(tw, "%.5g\t%.3f\t%.2f\t%.3f\t%.2f\t%s\t%s\t%d\t%s\t\n", p.FreqHz,
 			analysis.DBFromRatio(cmplx.Abs(p.L)), phaseOf(in.curve, p.FreqHz), pj.GainSigmaDB, pj.PhaseSigmaDeg,
-			analysis.DBFromRatio(cmplx.Abs(p.T)), analysis.DBFromRatio(cmplx.Abs(p.S)), pj.Attempts, flag)
+			closed, sens, pj.Attempts, flag)
 	}
 	return tw.Flush()
 }

@@ -375,3 +375,40 @@ func TestAnalyzeBadInput(t *testing.T) {
 		}
 	}
 }
+
+// A ratio session (H = V2/V1, here a first-order low pass with its pole
+// at 1 kHz) has no margins: analyze says so, keeps the points, and plot
+// refuses the loop-only views.
+func TestAnalyzeRatioSession(t *testing.T) {
+	const fp = 1000.0
+	s := &sweep.Session{Schema: sweep.SchemaVersion, OperatingPoint: "output filter alone",
+		Settings: sweep.Settings{Measure: sweep.MeasureRatio}, Complete: true}
+	for _, f := range []float64{100, 300, 1000, 3000, 10000} {
+		h := 1 / (1 + complex(0, f/fp))
+		s.Points = append(s.Points, sweep.Point{FreqHz: f, Chosen: -1, Attempts: []sweep.Attempt{{
+			Re: real(h), Im: imag(h), GainDB: 20 * math.Log10(cmplx.Abs(h)), PhaseDeg: cmplx.Phase(h) * 180 / math.Pi}}})
+	}
+	path := filepath.Join(t.TempDir(), "filter.json")
+	if err := sweep.SaveSession(path, s); err != nil {
+		t.Fatal(err)
+	}
+	a := analyzeJSONOf(t, path)
+	if a.Measure != sweep.MeasureRatio || a.CrossoverHz != nil || a.GainMarginDB != nil || a.ModulusMargin != nil ||
+		a.OvershootPct != nil || a.SensitivityPeak != nil || len(a.Points) != 5 {
+		t.Errorf("ratio session: %+v", a)
+	}
+	// First-order low pass at its pole: −3.0103 dB, −45° (REFERENCES.md).
+	if p := a.Points[2]; math.Abs(p.GainDB+3.0103) > 1e-4 || math.Abs(p.PhaseDeg+45) > 1e-9 {
+		t.Errorf("point at the pole: %+v, want -3.0103 dB, -45°", p)
+	}
+	_, out, _ := runLoopsweep("analyze", path)
+	if !strings.Contains(out, "measure: ratio (no margins)") || strings.Contains(out, "sensitivity peak") {
+		t.Errorf("text for a ratio session:\n%s", out)
+	}
+	if code, _, errs := runLoopsweep("plot", path, "--view", "closed", "-o", filepath.Join(t.TempDir(), "t.svg")); code != 2 || !strings.Contains(errs, "ratio") {
+		t.Errorf("plot --view closed of a ratio session: exit %d %s", code, errs)
+	}
+	if code, _, errs := runLoopsweep("plot", path, "-o", filepath.Join(t.TempDir(), "h.svg")); code != 0 {
+		t.Errorf("plot of a ratio session: exit %d %s", code, errs)
+	}
+}

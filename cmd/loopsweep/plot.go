@@ -19,6 +19,7 @@ import (
 	"gonum.org/v1/plot/vg/vgsvg"
 
 	"loopsweep/analysis"
+	"loopsweep/sweep"
 )
 
 func init() {
@@ -104,6 +105,11 @@ func runPlot(args []string, stdout, stderr io.Writer) error {
 			return badInput("%s: no measured points to plot", f)
 		}
 		ins = append(ins, in)
+	}
+	for _, in := range ins {
+		if v != viewLoop && in.sum.Measure == sweep.MeasureRatio {
+			return badInput("--view %s needs loop-gain data; %s measured a ratio H = V2/V1", v, in.path)
+		}
 	}
 	w, h := vg.Length(*wcm)*vg.Centimeter, vg.Length(*hcm)*vg.Centimeter
 	wt, err := renderBode(ins, v, w, h, format)
@@ -234,6 +240,15 @@ func renderBode(ins []*input, v plotView, w, h vg.Length, format string) (io.Wri
 	switch v {
 	case viewLoop:
 		gain.Title.Text = "Loop gain L"
+		for _, in := range ins {
+			if in.sum.Measure == sweep.MeasureRatio {
+				gain.Title.Text = "Response (loop gain L, transfer function H = V2/V1)"
+				if len(ins) == 1 {
+					gain.Title.Text = "Transfer function H = V2/V1"
+				}
+				break
+			}
+		}
 	case viewClosed:
 		gain.Title.Text = "Closed loop T = L/(1+L)"
 	case viewSensitivity:
