@@ -6,6 +6,7 @@ import (
 	"errors"
 	"fmt"
 	"os"
+	"regexp"
 	"strconv"
 	"strings"
 	"time"
@@ -194,6 +195,8 @@ type dataFile struct {
 	OffsetQuery string  `toml:"offset_query"`
 }
 
+var tomlTypeErr = regexp.MustCompile(`^toml: (?:line (\d+) )?\(last key "([^"]*)"\): (.*)$`)
+
 //go:embed profiles/*.toml
 var builtin embed.FS
 
@@ -232,6 +235,15 @@ func ParseProfile(file string, src []byte) (*Profile, error) {
 		var pe toml.ParseError
 		if errors.As(err, &pe) {
 			return nil, &ProfileError{File: file, Line: pe.Position.Line, Msg: pe.Message}
+		}
+		// Type mismatches come as plain errors of the form
+		// `toml: line N (last key "a.b"): message`.
+		if m := tomlTypeErr.FindStringSubmatch(err.Error()); m != nil {
+			line, _ := strconv.Atoi(m[1])
+			if line == 0 {
+				line = keyLine(src, m[2])
+			}
+			return nil, &ProfileError{File: file, Line: line, Key: m[2], Msg: m[3]}
 		}
 		return nil, &ProfileError{File: file, Msg: err.Error()}
 	}

@@ -131,6 +131,7 @@ fetch = "` + fetch + `"
 		{"byte order on ascii", dig("DATA? {ch}", "format = \"ascii\"\nbyte_order = \"big\"\n"), 11, "digitizer.data.byte_order", "means nothing"},
 		{"fetch placeholder", dig("DATA? {channel}", "format = \"real32\"\n"), 8, "digitizer.fetch", "unknown placeholder {channel}"},
 		{"unknown data key", dig("DATA? {ch}", "format = \"real32\"\nendian = \"big\"\n"), 11, "digitizer.data.endian", "unknown key"},
+		{"wrong type", gen("max_vpp = \"big\"\n"), 8, "generator.max_vpp", "incompatible types"},
 		{"interval and rate", strings.Replace(dig("D? {ch}", "format = \"real32\"\n"), "interval = \"TINT {s}\"", "interval = \"TINT {s}\"\nrate = \"SRAT {hz}\"", 1), 6, "digitizer.rate", "not both"},
 	}
 	for _, tc := range tests {
