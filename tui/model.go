@@ -396,7 +396,6 @@ func (m Model) Update(msg tea.Msg) (tea.Model, tea.Cmd) {
 		switch m.mode {
 		case modeForm:
 			m.form, cmd = m.form.Update(msg)
-			redraw = cmd == nil
 		case modeNote:
 			m.note, cmd = m.note.Update(msg)
 		}
