@@ -124,11 +124,21 @@ func (s *Session) begin(ctx context.Context) (func(), error) {
 	s.mu.Lock()
 	s.ctx = ctx
 	s.ctxDeadline, _ = ctx.Deadline()
-	stop := func() bool { return false }
+	stop := func() {}
 	if ctx.Done() != nil {
 		if dc, ok := s.c.(interface{ SetDeadline(time.Time) error }); ok {
-			// Unblock a pending read or write when ctx is cancelled.
-			stop = context.AfterFunc(ctx, func() { dc.SetDeadline(time.Now()) })
+			// Unblock a pending read or write when ctx is cancelled, and
+			// let that finish before the next exchange sets its deadlines.
+			fired := make(chan struct{})
+			cancel := context.AfterFunc(ctx, func() {
+				dc.SetDeadline(time.Now())
+				close(fired)
+			})
+			stop = func() {
+				if !cancel() {
+					<-fired
+				}
+			}
 		}
 	}
 	if s.stale {
