@@ -256,9 +256,13 @@ func (m *Model) updateKeys() {
 	m.keys.Last.SetEnabled(n > 0)
 }
 
+// maxPoints bounds the index an event may create, so a corrupt event
+// cannot make the screen allocate without limit (plans stop at 10 000).
+const maxPoints = 100000
+
 // ensure makes point i exist, at frequency f when it is new.
 func (m *Model) ensure(i int, f float64) bool {
-	if i < 0 || i > 100000 {
+	if i < 0 || i > maxPoints {
 		return false
 	}
 	for len(m.sess.Points) <= i {
