@@ -412,3 +412,38 @@ func TestAnalyzeRatioSession(t *testing.T) {
 		t.Errorf("plot of a ratio session: exit %d %s", code, errs)
 	}
 }
+
+// End to end: a live sweep of the simulated bench (real loopback TCP)
+// prints its margins with --json; analyze --json of the file it saved
+// prints the same value for every key the sweep printed.
+func TestAnalyzeEqualsLiveSweep(t *testing.T) {
+	if testing.Short() {
+		t.Skip("runs a simulated sweep (about 3 s)")
+	}
+	path := filepath.Join(t.TempDir(), "live.json")
+	code, live, errs := runLoopsweep("sweep", "--sim", "--headless", "--json", "--out", path)
+	if code != 0 {
+		t.Fatalf("sweep: exit %d: %s", code, errs)
+	}
+	code, offline, errs := runLoopsweep("analyze", "--json", path)
+	if code != 0 {
+		t.Fatalf("analyze: exit %d: %s", code, errs)
+	}
+	var a, b map[string]json.RawMessage
+	if err := json.Unmarshal([]byte(live), &a); err != nil {
+		t.Fatalf("sweep --json: %v\n%s", err, live)
+	}
+	if err := json.Unmarshal([]byte(offline), &b); err != nil {
+		t.Fatal(err)
+	}
+	for _, k := range []string{"crossover_hz", "phase_margin_deg", "gain_margin_db", "points"} {
+		if _, ok := a[k]; !ok {
+			t.Errorf("sweep --json lacks %q", k)
+		}
+	}
+	for k, v := range a {
+		if !bytes.Equal(bytes.Join(bytes.Fields(v), nil), bytes.Join(bytes.Fields(b[k]), nil)) {
+			t.Errorf("%s: live %s, offline %s", k, v, b[k])
+		}
+	}
+}
