@@ -283,7 +283,7 @@ func (s *Session) readLine() (string, error) {
 		return strings.TrimSuffix(string(line[:len(line)-1]), "\r"), nil
 	}
 	if !errors.Is(err, bufio.ErrBufferFull) {
-		return "", unexpectedEOF(err, fmt.Sprintf("reply after %d bytes", len(line)))
+		return "", unexpectedEOF(err, replyCut(len(line)))
 	}
 	long := append([]byte(nil), line...)
 	for {
@@ -296,9 +296,16 @@ func (s *Session) readLine() (string, error) {
 			return strings.TrimSuffix(string(long[:len(long)-1]), "\r"), nil
 		}
 		if !errors.Is(err, bufio.ErrBufferFull) {
-			return "", unexpectedEOF(err, fmt.Sprintf("reply after %d bytes", len(long)))
+			return "", unexpectedEOF(err, replyCut(len(long)))
 		}
 	}
+}
+
+func replyCut(n int) string {
+	if n == 0 {
+		return "no reply"
+	}
+	return fmt.Sprintf("reply cut after %d bytes", n)
 }
 
 // QueryBlock sends cmd and decodes the reply — an IEEE 488.2 block, or
