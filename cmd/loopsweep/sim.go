@@ -61,11 +61,11 @@ func runSim(args []string, stdout, stderr io.Writer) error {
 		return badInput("--listen %s: %v", *listen, err)
 	}
 	defer srv.Close()
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	defer stop()
 	fmt.Fprintf(stdout, "generator %s\ndigitizer %s\n", srv.GenAddr(), srv.DigAddr())
 	fmt.Fprintf(stdout, "scenario %s, load %s: %s\n", sc.Name, srv.Load(), marginsLine(tm))
 	fmt.Fprintf(stdout, "try: loopsweep sweep --gen tcp://%s --dig tcp://%s\n", srv.GenAddr(), srv.DigAddr())
-	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
-	defer stop()
 	<-ctx.Done()
 	fmt.Fprintln(stderr, "loopsweep sim: stopped")
 	return nil
