@@ -216,9 +216,33 @@ func New(o Options) Model {
 	return m
 }
 
-// Init starts listening and the redraw tick.
+// Init starts listening and the redraw tick. While the first-run safety
+// note is up, a live sweep is held paused (output off): nothing is
+// injected before the note has been read.
 func (m Model) Init() tea.Cmd {
-	return tea.Batch(listen(m.opt.SweepID, m.opt.Events), m.tick())
+	cmds := []tea.Cmd{listen(m.opt.SweepID, m.opt.Events), m.tick()}
+	if c := m.opt.Controller; c != nil && m.mode == modeSafety {
+		cmds = append(cmds, call("held paused until the safety note is read", func() error { c.Pause(); return nil }))
+	}
+	return tea.Batch(cmds...)
+}
+
+// resumeAfterSafety resumes the sweep Init held.
+func (m Model) resumeAfterSafety(remember bool) tea.Cmd {
+	c, dir := m.opt.Controller, m.opt.ConfigDir
+	return func() tea.Msg {
+		var err error
+		if remember {
+			err = dismissSafety(dir)
+		}
+		if c != nil {
+			c.Resume()
+		}
+		if remember && err == nil {
+			return doneMsg{what: "safety note will not be shown again"}
+		}
+		return doneMsg{what: "safety note", err: err}
+	}
 }
 
 // live reports whether a sweep is in progress (running, paused or
@@ -446,10 +470,10 @@ func (m Model) key(k tea.KeyMsg) (Model, tea.Cmd) {
 		switch {
 		case key.Matches(k, m.dkeys.Forever):
 			m.mode = modeBench
-			dir := m.opt.ConfigDir
-			return m, call("safety note will not be shown again", func() error { return dismissSafety(dir) })
-		case key.Matches(k, m.dkeys.Submit), key.Matches(k, m.dkeys.Cancel), k.String() == " ":
+			return m, m.resumeAfterSafety(true)
+		case key.Matches(k, m.dkeys.Submit), key.Matches(k, m.dkeys.Cancel):
 			m.mode = modeBench
+			return m, m.resumeAfterSafety(false)
 		}
 		return m, nil
 	case modeConfirmQuit:
@@ -670,6 +694,10 @@ func (m *Model) draw() {
 		}
 	}
 	switch m.mode {
+	case modeSafety:
+		helpView = m.st.dim.Render("enter: continue · d: continue, don't show again · ctrl+c: stop and quit")
+	case modeConfirmQuit:
+		helpView = m.st.dim.Render("y/enter: stop and quit · n/esc: keep going")
 	case modeForm:
 		helpView = m.st.dim.Render("editing settings")
 	case modeNote:

@@ -355,7 +355,13 @@ func TestSafetyNote(t *testing.T) {
 	if SafetyDismissed(dir) {
 		t.Fatal("dismissed before anything was written")
 	}
-	m := New(Options{Controller: &fakeController{}, Renderer: plainRenderer(), ShowSafety: true, ConfigDir: dir})
+	ctl := &fakeController{}
+	m := New(Options{Controller: ctl, Renderer: plainRenderer(), ShowSafety: true, ConfigDir: dir})
+	// The sweep is held paused while the note is up.
+	run([]tea.Cmd{m.Init()})
+	if got := ctl.Calls(); len(got) != 1 || got[0] != "Pause" {
+		t.Errorf("Init with the note up: calls %q, want Pause", got)
+	}
 	m, _ = send(t, m, tea.WindowSizeMsg{Width: 80, Height: 24})
 	for _, want := range []string{"Hazardous voltages", "isolating injection transformer", "protective earth", "small amplitude", "local electrical codes"} {
 		if !strings.Contains(plain(m), want) {
@@ -367,6 +373,9 @@ func TestSafetyNote(t *testing.T) {
 	run(cmds)
 	if m1.mode != modeBench || SafetyDismissed(dir) {
 		t.Errorf("enter: mode %d, remembered %v; want the bench, not remembered", m1.mode, SafetyDismissed(dir))
+	}
+	if got := ctl.Calls(); len(got) != 2 || got[1] != "Resume" {
+		t.Errorf("after enter: calls %q, want Pause, Resume", got)
 	}
 	// d continues and remembers.
 	m2, cmds := send(t, m, keyMsg("d"))
