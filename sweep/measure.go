@@ -40,7 +40,7 @@ const (
 	neighbourAllowDB     = 3.0
 	neighbourAllowDeg    = 20.0
 	refineNearRel        = 0.01 // a tone within 1% of a crossing counts as "at" it (tones move up to 0.5%)
-	refineTriesPerTarget = 2
+	refineTriesPerTarget = 3
 	// maxRecordS caps a record's duration for retries and refinement
 	// (the plan's own cycles are always taken).
 	maxRecordS = 0.25
@@ -137,13 +137,16 @@ func (e *Engine) refineJobLocked() (job, bool) {
 	type target struct {
 		f    float64
 		need bool
+		grow float64 // variance ratio still to gain: (σ/target)²
 	}
 	var ts []target
 	for _, g := range m.GainCrossovers {
-		ts = append(ts, target{g.FreqHz, g.SigmaDeg > e.set.RefinePMDeg || g.SigmaFreqHz > refineFreqRel*g.FreqHz})
+		r := math.Max(sq(g.SigmaDeg/e.set.RefinePMDeg), sq(g.SigmaFreqHz/(refineFreqRel*g.FreqHz)))
+		ts = append(ts, target{g.FreqHz, r > 1, r})
 	}
 	for _, p := range m.PhaseCrossovers {
-		ts = append(ts, target{p.FreqHz, p.SigmaDB > e.set.RefineGMDB || p.SigmaFreqHz > refineFreqRel*p.FreqHz})
+		r := math.Max(sq(p.SigmaDB/e.set.RefineGMDB), sq(p.SigmaFreqHz/(refineFreqRel*p.FreqHz)))
+		ts = append(ts, target{p.FreqHz, r > 1, r})
 	}
 	for _, t := range ts {
 		if !(t.f > 0) || !finite(t.f) {
@@ -189,8 +192,9 @@ func (e *Engine) refineJobLocked() (job, bool) {
 			p := e.sess.Points[best]
 			a, _ := e.sess.Chosen(best)
 			e.refineTry[-p.FreqHz]++
-			grow := math.Max(sq(a.GainSigmaDB/(e.set.RefineGMDB/2)), sq(a.PhaseSigmaDeg/(e.set.RefinePMDeg/2)))
-			grow = math.Min(math.Max(grow, 2), 1000)
+			// The crossing's uncertainty comes from the points around it:
+			// give this one the variance ratio the crossing still lacks.
+			grow := math.Min(math.Max(2*t.grow, 2), 1000)
 			cyc := int(math.Ceil(a.Cycles * grow / float64(e.set.Cycles)))
 			return job{freq: p.FreqHz, reason: "refine", cyclesX: max(cyc, 2), attempts: 1}, true
 		}
@@ -653,11 +657,9 @@ func (e *Engine) captureWant(set Settings, f float64, cycles int) (instr.Capture
 	maxP := e.cfg.MaxPoints
 	spc := set.MinPerCycle
 	if cycles*spc > maxP {
-		spc = maxP / cycles
-		if spc < minPerCycleMin {
-			spc = minPerCycleMin
-			cycles = maxP / spc
-		}
+		// Fewer cycles: the samples per cycle stay, so the timebase's
+		// rounding cannot leave too few.
+		cycles = max(1, maxP/spc)
 	}
 	if cycles < 1 {
 		return instr.CaptureSettings{}, fmt.Errorf("plan a record at %g Hz: the digitizer's %d points cannot hold one cycle", f, maxP)
@@ -714,7 +716,7 @@ func (e *Engine) planRecord(ctx context.Context, want instr.CaptureSettings, f f
 		fdt    float64
 		found  bool
 	)
-	for i, k := range []float64{1, 0.5, 0.2, 0.1, 0.05, 0.02, 2} {
+	for i, k := range []float64{1, 0.5, 0.2, 0.1, 2} {
 		w := want
 		w.IntervalS = base * k
 		if i > 0 && 1/(f*w.IntervalS) < 1.5*minPerCycleMin {
@@ -722,6 +724,9 @@ func (e *Engine) planRecord(ctx context.Context, want instr.CaptureSettings, f f
 		}
 		dt, err := e.actualInterval(ctx, w, f)
 		if err != nil {
+			if i > 0 {
+				continue // an interval the digitizer refuses: try the next
+			}
 			return want, 0, -1, err
 		}
 		if spc := 1 / (f * dt); spc < minPerCycleMin {
