@@ -198,7 +198,13 @@ func (l vline) Plot(c draw.Canvas, p *plot.Plot) {
 		sty.XAlign = draw.XLeft
 		sty.YAlign = draw.YTop
 		y := c.Max.Y - vg.Points(2) - vg.Length(l.Row)*vg.Points(9)
-		c.FillText(sty, vg.Point{X: x + vg.Points(2), Y: y}, l.Label)
+		tx := x + vg.Points(2)
+		if tx+sty.Width(l.Label) > c.Max.X {
+			// No room on the right: put the label left of the line.
+			sty.XAlign = draw.XRight
+			tx = x - vg.Points(2)
+		}
+		c.FillText(sty, vg.Point{X: tx, Y: y}, l.Label)
 	}
 }
 
@@ -317,6 +323,31 @@ func renderBode(ins []*input, v plotView, w, h vg.Length, format string) (io.Wri
 		pl.LineStyle = sty
 		gain.Add(gl)
 		phase.Add(pl)
+		// Measured points as dots; flagged points as crosses, so a
+		// reader sees where the data is and which points stayed bad.
+		var good, bad plotter.XYs
+		for k, p := range in.curve {
+			if flaggedAt(in, p.FreqHz) {
+				bad = append(bad, gxy[k])
+			} else {
+				good = append(good, gxy[k])
+			}
+		}
+		for _, set := range []struct {
+			xy    plotter.XYs
+			shape draw.GlyphDrawer
+			r     vg.Length
+		}{{good, draw.CircleGlyph{}, vg.Points(1.3)}, {bad, draw.CrossGlyph{}, vg.Points(3)}} {
+			if len(set.xy) == 0 {
+				continue
+			}
+			sc, err := plotter.NewScatter(set.xy)
+			if err != nil {
+				return nil, fmt.Errorf("plot %s: %w", in.path, err)
+			}
+			sc.GlyphStyle = draw.GlyphStyle{Color: col, Radius: set.r, Shape: set.shape}
+			gain.Add(sc)
+		}
 		gain.Legend.Add(in.label, gl)
 		mark := draw.LineStyle{Color: col, Width: vg.Points(0.8), Dashes: []vg.Length{vg.Points(3), vg.Points(2)}}
 		s := in.sum
@@ -398,4 +429,14 @@ func (siLogTicks) Ticks(min, max float64) []plot.Tick {
 		}
 	}
 	return ts
+}
+
+// flaggedAt reports whether the point of in measured at f is flagged.
+func flaggedAt(in *input, f float64) bool {
+	for _, p := range in.sum.Points {
+		if p.FreqHz == f {
+			return p.Flagged
+		}
+	}
+	return false
 }
