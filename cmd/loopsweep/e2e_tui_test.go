@@ -85,7 +85,8 @@ func TestTUIEndToEnd(t *testing.T) {
 	}
 
 	// First run: the safety note. 'd' dismisses it for good.
-	b.waitFor("the safety note", regexp.MustCompile(`Before you connect the bench`), 20*time.Second)
+	// The sweep is held paused (output off) while the note is up.
+	b.waitFor("the safety note over a paused sweep", regexp.MustCompile(`(?s)PAUSED · point.*Before you connect the bench`), 20*time.Second)
 	b.send("d")
 	// The bench: pause at once so the sweep is still live.
 	b.waitFor("the bench screen", regexp.MustCompile(`(RUNNING|STARTING|REFINING) · point`), 10*time.Second)
