@@ -180,7 +180,8 @@ func ParseSession(data []byte, name string) (*Session, error) {
 	for i := range s.Points {
 		p := &s.Points[i]
 		where := func(format string, a ...any) error {
-			return &FileError{File: name, Offset: -1, Err: fmt.Errorf("point %d (%g Hz): %s", i+1, p.FreqHz, fmt.Sprintf(format, a...))}
+			err := fmt.Errorf("point %d (%g Hz): %s", i+1, p.FreqHz, fmt.Sprintf(format, a...))
+			return fileErr(name, data, bomLen+pointOffset(body, i), err)
 		}
 		if !(p.FreqHz > 0) || math.IsInf(p.FreqHz, 0) {
 			return nil, where("freq_hz is not a positive frequency")
@@ -221,6 +222,49 @@ func ParseSession(data []byte, name string) (*Session, error) {
 		s.Schema = SchemaVersion
 	}
 	return &s, nil
+}
+
+// pointOffset returns the byte offset in body of element i of the
+// top-level "points" array, or −1 when it cannot be found. body is known
+// to be valid JSON.
+func pointOffset(body []byte, i int) int64 {
+	dec := json.NewDecoder(bytes.NewReader(body))
+	if t, err := dec.Token(); err != nil || t != json.Delim('{') {
+		return -1
+	}
+	for dec.More() {
+		t, err := dec.Token()
+		if err != nil {
+			return -1
+		}
+		if key, _ := t.(string); key != "points" {
+			var skip json.RawMessage
+			if dec.Decode(&skip) != nil {
+				return -1
+			}
+			continue
+		}
+		if t, err := dec.Token(); err != nil || t != json.Delim('[') {
+			return -1
+		}
+		for k := 0; dec.More(); k++ {
+			off := dec.InputOffset()
+			var skip json.RawMessage
+			if dec.Decode(&skip) != nil {
+				return -1
+			}
+			if k == i {
+				// InputOffset is just past the previous token; step over
+				// the separator and blanks to the element itself.
+				for off < int64(len(body)) && strings.IndexByte(" \t\r\n,", body[off]) >= 0 {
+					off++
+				}
+				return off
+			}
+		}
+		return -1
+	}
+	return -1
 }
 
 // polarDB returns 20·log10|h| and angle(h) in degrees, (−180, 180].

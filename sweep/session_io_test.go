@@ -123,8 +123,14 @@ func wrap180(deg float64) float64 {
 // so the example files show a history of attempts.
 func buildSession(e exampleLoop) *Session {
 	t0 := time.Date(2026, 3, 14, 9, 30, 0, 0, time.UTC)
-	st := Defaults()
-	st.StartHz, st.StopHz, st.PerDecade = e.start, e.stop, e.ppd
+	// Settings spelled out (not Defaults()) so the example files do not
+	// change when the defaults are tuned.
+	st := Settings{
+		StartHz: e.start, StopHz: e.stop, PerDecade: e.ppd, Measure: MeasureLoop,
+		AmpVpp: 0.02, MaxAmpVpp: 0.1, TargetSNRdB: 40, MaxHarmonicDB: -30,
+		SettleCycles: 10, SettleMin: 10 * time.Millisecond, Cycles: 10, MinPerCycle: 20,
+		MinSNRdB: 20, MaxAttempts: 3, RefinePMDeg: 0.5, RefineGMDB: 0.2, RefineBudget: 8,
+	}
 	s := &Session{
 		Schema: SchemaVersion, ToolVersion: "0.1.0", Created: t0,
 		OperatingPoint: e.op, Settings: st, Complete: e.complete,
@@ -434,7 +440,8 @@ func TestLoadSessionErrors(t *testing.T) {
 		{"schema 2", []byte(`{"schema":2,"points":[]}`), ErrSchema, 0, "schema 2 is newer"},
 		{"schema 0", []byte(`{"schema":0,"points":[]}`), ErrSchema, 0, "schema 0"},
 		{"schema string", []byte("{\n\"schema\":\"1\"}"), nil, 2, "schema"},
-		{"bad freq", []byte(`{"schema":1,"points":[{"freq_hz":-5,"attempts":[]}]}`), nil, 0, "point 1 (-5 Hz)"},
+		{"bad freq", []byte(`{"schema":1,"points":[{"freq_hz":-5,"attempts":[]}]}`), nil, 1, "point 1 (-5 Hz)"},
+		{"bad freq on line 4", []byte("{\"schema\": 1, \"notes\": [{\"text\": \"a\"}],\n\"points\": [\n {\"freq_hz\": 5},\n {\"freq_hz\": 0}\n]}"), nil, 4, "point 2 (0 Hz)"},
 		{"bad chosen", []byte(`{"schema":1,"points":[{"freq_hz":5,"chosen":1,"attempts":[{"gain_db":1,"phase_deg":2}]}]}`), nil, 0, "chosen 1"},
 		{"empty attempt", []byte(`{"schema":1,"points":[{"freq_hz":5,"attempts":[{}]}]}`), nil, 0, "attempt 1 has neither"},
 		{"negative sigma", []byte(`{"schema":1,"points":[{"freq_hz":5,"attempts":[{"gain_db":1,"phase_deg":2,"gain_sigma_db":-1}]}]}`), nil, 0, "negative"},
