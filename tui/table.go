@@ -96,6 +96,7 @@ func detailLines(s *sweep.Session, index int) []string {
 	}
 	p := s.Points[index]
 	head := fmt.Sprintf("point %d  %s Hz", index+1, formatHz(p.FreqHz))
+	short := fmt.Sprintf("pt %d  %s Hz", index+1, formatHz(p.FreqHz))
 	if len(p.Attempts) == 0 {
 		return []string{head + "  not measured yet"}
 	}
@@ -107,7 +108,7 @@ func detailLines(s *sweep.Session, index int) []string {
 		}
 	}
 	out := []string{
-		fmt.Sprintf("%s  attempt %d of %d  amp %sVpp", head, n, len(p.Attempts), formatHz(a.AmpVpp)),
+		fmt.Sprintf("%s  attempt %d of %d  %sVpp", short, n, len(p.Attempts), formatHz(a.AmpVpp)),
 		channelLine("ch1", a.Ch1),
 		channelLine("ch2", a.Ch2),
 		fmt.Sprintf("gain %.2f ± %.2f dB  phase %.1f ± %.1f°", a.GainDB, a.GainSigmaDB, a.PhaseDeg, a.PhaseSigmaDeg),
@@ -133,7 +134,7 @@ func channelLine(name string, c sweep.ChannelReading) string {
 	if c.Clipped {
 		clip = "  CLIPPED"
 	}
-	return fmt.Sprintf("%s %s pk  SNR %.1f dB  H2 %.0f H3 %.0f dBc%s", name, formatV(c.AmpPeakV), c.SNRdB, c.H2dBc, c.H3dBc, clip)
+	return fmt.Sprintf("%s %spk SNR %.1fdB H2/H3 %.0f/%.0fdBc%s", name, formatV(c.AmpPeakV), c.SNRdB, c.H2dBc, c.H3dBc, clip)
 }
 
 // formatV prints volts with an SI prefix: 12.3mV, 1.00V.

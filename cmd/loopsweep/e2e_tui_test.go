@@ -170,11 +170,11 @@ func TestTUIEndToEnd(t *testing.T) {
 	}
 	b.waitFor("the continued session done", regexp.MustCompile(`DONE · point`), 30*time.Second)
 	b.send("g")
-	s = b.waitFor("point 1 selected", regexp.MustCompile(`point 1  100 Hz  attempt \d+ of \d+`), 10*time.Second)
+	s = b.waitFor("point 1 selected", regexp.MustCompile(`pt 1  100 Hz  attempt \d+ of \d+`), 10*time.Second)
 	var before int
 	fmt.Sscanf(regexp.MustCompile(`attempt \d+ of (\d+)`).FindStringSubmatch(s)[1], "%d", &before)
 	b.send("r")
-	b.waitFor("point 1 re-measured", regexp.MustCompile(fmt.Sprintf(`point 1  100 Hz  attempt \d+ of (%d|%d|%d|%d)\b`, before+1, before+2, before+3, before+4)), 30*time.Second)
+	b.waitFor("point 1 re-measured", regexp.MustCompile(fmt.Sprintf(`pt 1  100 Hz  attempt \d+ of (%d|%d|%d|%d)\b`, before+1, before+2, before+3, before+4)), 30*time.Second)
 	// q asks if the re-measure is still running; y then stops.
 	b.send("q")
 	if s = b.waitFor("the question or the exit", regexp.MustCompile(`quit\? \(y/n\)|LOOPSWEEP-EXIT=\d+`), 20*time.Second); strings.Contains(s, "(y/n)") {
