@@ -2,7 +2,6 @@ package tui
 
 import (
 	"fmt"
-	"path/filepath"
 	"strings"
 	"time"
 
@@ -159,6 +158,7 @@ type Model struct {
 	dirty    bool // the session changed: recompute points and margins
 
 	plot    plotModel
+	status  statusModel
 	table   tableModel
 	mpanel  marginsModel
 	form    formModel
@@ -199,6 +199,7 @@ func New(o Options) Model {
 	m.sess.Points = append([]sweep.Point(nil), o.Session.Points...)
 	m.plot = newPlot(m.st)
 	m.table = newTable(m.st)
+	m.status = newStatus(m.st)
 	m.mpanel = newMargins(m.st, o.PMTargetDeg, o.GMTargetDB)
 	m.note = textinput.New()
 	m.note.Placeholder = "what changed on the bench"
@@ -704,7 +705,9 @@ func (m *Model) draw() {
 		helpView = m.st.dim.Render("enter: add note · esc: cancel")
 	}
 	helpLines := strings.Split(helpView, "\n")
-	status := m.statusLines(w)
+	m.status.SetSize(w)
+	m.status.Set(m.statusInfo())
+	status := strings.Split(m.status.View(), "\n")
 	bodyH := max(h-len(status)-len(helpLines), 1)
 
 	var body string
@@ -782,9 +785,8 @@ func (m *Model) benchBody(w, h int) string {
 	return m.plot.View() + "\n" + hjoin(" ", left, m.table.View())
 }
 
-// statusLines are the two lines at the top: state, progress, time and
-// file; then a message, or the instruments.
-func (m Model) statusLines(w int) []string {
+// statusInfo gathers what the status panel shows.
+func (m Model) statusInfo() statusInfo {
 	n := max(len(m.sess.Points), len(m.sess.Settings.Plan()))
 	done := 0
 	for _, v := range m.views {
@@ -796,45 +798,23 @@ func (m Model) statusLines(w int) []string {
 	if m.active >= 0 {
 		k = m.active + 1
 	}
-	st := m.stateText()
-	stStyled := m.st.title.Render(st)
-	if m.state == sweep.Failed {
-		stStyled = m.st.bad.Render(st)
+	in := statusInfo{
+		State: m.stateText(), Bad: m.state == sweep.Failed,
+		K: k, N: n,
+		File: m.opt.SessionFile, ReadOnly: m.opt.Controller == nil,
+		Flash: m.flash, FlashBad: m.flashBad,
+		GenIDN: m.sess.Instruments.GeneratorIDN, DigIDN: m.sess.Instruments.DigitizerIDN,
 	}
-	parts := []string{stStyled, fmt.Sprintf("point %d of %d", k, n)}
+	if m.state == sweep.Failed || m.state == sweep.Stopped {
+		in.StateMsg = m.stateMsg
+	}
 	if !m.started.IsZero() && !m.now.IsZero() {
-		el := m.now.Sub(m.started)
-		parts = append(parts, "elapsed "+formatDuration(el))
-		if (m.state == sweep.Running || m.state == sweep.Refining) && done > 0 && n > done && el > 0 {
-			eta := time.Duration(float64(el) / float64(done) * float64(n-done))
-			parts = append(parts, "ETA "+formatDuration(eta))
+		in.HaveTime = true
+		in.Elapsed = m.now.Sub(m.started)
+		if (m.state == sweep.Running || m.state == sweep.Refining) && done > 0 && n > done && in.Elapsed > 0 {
+			in.HaveETA = true
+			in.ETA = time.Duration(float64(in.Elapsed) / float64(done) * float64(n-done))
 		}
 	}
-	if m.opt.SessionFile != "" {
-		parts = append(parts, "file "+filepath.Base(m.opt.SessionFile))
-	}
-	if m.opt.Controller == nil {
-		parts = append(parts, "read-only")
-	}
-	line1 := strings.Join(parts, " · ")
-	var line2 string
-	switch {
-	case m.flash != "" && m.flashBad:
-		line2 = m.st.bad.Render(m.flash)
-	case m.flash != "":
-		line2 = m.st.good.Render(m.flash)
-	case m.stateMsg != "" && (m.state == sweep.Failed || m.state == sweep.Stopped):
-		line2 = m.stateText() + ": " + m.stateMsg
-	default:
-		in := m.sess.Instruments
-		line2 = m.st.dim.Render(fmt.Sprintf("gen %s · dig %s", orDash(in.GeneratorIDN), orDash(in.DigitizerIDN)))
-	}
-	return []string{fitLine(line1, w), fitLine(line2, w)}
-}
-
-func orDash(s string) string {
-	if strings.TrimSpace(s) == "" {
-		return "—"
-	}
-	return strings.TrimSpace(s)
+	return in
 }
