@@ -3,8 +3,10 @@ package sim
 import (
 	"encoding/binary"
 	"math"
+	"runtime"
 	"strconv"
 	"strings"
+	"sync"
 	"time"
 )
 
@@ -563,15 +565,7 @@ func encodeRecord(codes []int16, cs chanSetup, format string, swapped bool) resu
 	body := out[len(out) : len(out)+nb]
 	switch format {
 	case "REAL,32":
-		if swapped {
-			for j, q := range codes {
-				binary.LittleEndian.PutUint32(body[4*j:], math.Float32bits(float32(float64(q)*lsb+off)))
-			}
-			break
-		}
-		for j, q := range codes {
-			binary.BigEndian.PutUint32(body[4*j:], math.Float32bits(float32(float64(q)*lsb+off)))
-		}
+		encodeReal32(body, codes, lsb, off, swapped)
 	case "INT,16":
 		for j, q := range codes {
 			order.PutUint16(body[2*j:], uint16(q))
@@ -623,4 +617,37 @@ func ceil125(v, lo, hi float64) float64 {
 		}
 	}
 	return hi
+}
+
+// encodeReal32 writes codes as float32 volts (code·lsb + off) into body,
+// big-endian unless swapped, in parallel pieces for long records.
+func encodeReal32(body []byte, codes []int16, lsb, off float64, swapped bool) {
+	piece := func(body []byte, codes []int16) {
+		body = body[:4*len(codes)]
+		if swapped {
+			for j, q := range codes {
+				binary.LittleEndian.PutUint32(body[4*j:], math.Float32bits(float32(float64(q)*lsb+off)))
+			}
+			return
+		}
+		for j, q := range codes {
+			binary.BigEndian.PutUint32(body[4*j:], math.Float32bits(float32(float64(q)*lsb+off)))
+		}
+	}
+	workers := min(runtime.GOMAXPROCS(0), len(codes)>>16)
+	if workers < 2 {
+		piece(body, codes)
+		return
+	}
+	per := (len(codes) + workers - 1) / workers
+	var wg sync.WaitGroup
+	for lo := 0; lo < len(codes); lo += per {
+		hi := min(lo+per, len(codes))
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			piece(body[4*lo:], codes[lo:hi])
+		}()
+	}
+	wg.Wait()
 }

@@ -7,6 +7,8 @@ import (
 	"math/cmplx"
 	"testing"
 	"time"
+
+	"loopsweep/analysis"
 )
 
 // dft is the textbook single-bin DFT over the whole record,
@@ -97,6 +99,18 @@ func TestRecordsMatchModel(t *testing.T) {
 		}
 		if e := math.Abs(cmplx.Abs(m2)/cmplx.Abs(v2) - 1); e > tol2 {
 			t.Errorf("%g Hz: |V2| %.6g V, model %.6g V (rel. error %.2g > %.2g)", c.f, cmplx.Abs(m2), cmplx.Abs(v2), e, tol2)
+		}
+		// package analysis's estimator (a fit of DC, tone and harmonics)
+		// must agree with the textbook DFT within the same noise
+		a1, a2, err := analysis.EstimatePair(cp.x1, cp.x2, cp.dt, c.f, analysis.ToneOptions{}, analysis.ToneOptions{})
+		if err != nil {
+			t.Fatalf("%g Hz: EstimatePair: %v", c.f, err)
+		}
+		if e := cmplx.Abs(a1.Phasor/v1 - m1/v1); e > tol1 {
+			t.Errorf("%g Hz: EstimatePair V1 %v, DFT %v", c.f, a1.Phasor, m1)
+		}
+		if e := cmplx.Abs(a2.Phasor/v2 - m2/v2); e > tol2 {
+			t.Errorf("%g Hz: EstimatePair V2 %v, DFT %v", c.f, a2.Phasor, m2)
 		}
 		// the ratio −V2/V1 is L: phase within the combined noise (rad)
 		got := -m2 / m1
