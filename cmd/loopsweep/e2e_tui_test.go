@@ -109,6 +109,15 @@ func TestTUIEndToEnd(t *testing.T) {
 	b.send("r")
 	b.waitFor("the re-measure queued", regexp.MustCompile(`point 2 \(\S+ Hz\) queued`), 5*time.Second)
 
+	// A note, then save now.
+	b.send("n")
+	b.waitFor("the note prompt", regexp.MustCompile(`note: `), 5*time.Second)
+	b.send("-l", "probe moved to the output cap")
+	b.send("Enter")
+	b.waitFor("the note added", regexp.MustCompile(`note added`), 5*time.Second)
+	b.send("s")
+	b.waitFor("the save", regexp.MustCompile(`saved \S*run\.json`), 5*time.Second)
+
 	// q while paused asks; n declines.
 	b.send("q")
 	b.waitFor("the quit question", regexp.MustCompile(`quit\? \(y/n\)`), 5*time.Second)
@@ -131,8 +140,12 @@ func TestTUIEndToEnd(t *testing.T) {
 	if !strings.Contains(s, "LOOPSWEEP-EXIT=0") {
 		t.Errorf("exit status not 0:\n%s", s)
 	}
-	if st, err := os.Stat(session); err != nil || st.Size() == 0 {
-		t.Fatalf("session file %s not written: %v", session, err)
+	saved, err := sweep.LoadSession(session)
+	if err != nil {
+		t.Fatalf("session file: %v", err)
+	}
+	if len(saved.Notes) != 1 || saved.Notes[0].Text != "probe moved to the output cap" {
+		t.Errorf("session notes %+v, want the one typed", saved.Notes)
 	}
 
 	// Browse the saved session: read-only, the same margins.
