@@ -505,9 +505,8 @@ func (s *Server) opc(gen bool) result {
 		s.mu.Lock()
 		a := s.dig.acq
 		s.mu.Unlock()
-		if a != nil {
-			<-a.done
-			time.Sleep(time.Until(a.end))
+		if a != nil && !s.waitAcquisition(a) {
+			return fail(scpiError{-200, "Execution error"})
 		}
 	}
 	return text("1")
@@ -527,8 +526,9 @@ func (s *Server) traceData(c command) result {
 	if a == nil {
 		return fail(errStale)
 	}
-	<-a.done
-	time.Sleep(time.Until(a.end))
+	if !s.waitAcquisition(a) {
+		return fail(scpiError{-200, "Execution error"})
+	}
 	codes := a.c1
 	if i == 1 {
 		codes = a.c2

@@ -1,6 +1,7 @@
 package sim
 
 import (
+	"fmt"
 	"math"
 	"math/cmplx"
 	"os"
@@ -218,5 +219,40 @@ func TestScenarioErrors(t *testing.T) {
 	sc, _ := LoadScenario("")
 	if _, err := sc.Loop("heavy", 1e3); err == nil || !strings.Contains(err.Error(), `"heavy"`) {
 		t.Errorf("unknown load: %v", err)
+	}
+}
+
+// A compensator given by poles and zeros equals the same network given
+// by components. Type II op-amp network (common practice): integrator
+// f_i = 1/(2π·R1·(C1+C2)), zero 1/(2π·R2·C1), pole
+// 1/(2π·R2·C1·C2/(C1+C2)); the poles/zeros form multiplies by the divider
+// ratio H, so its integrator frequency is f_i/H.
+func TestPolesZerosFormMatchesComponents(t *testing.T) {
+	comp, err := LoadScenario("marginal")
+	if err != nil {
+		t.Fatal(err)
+	}
+	c := comp.Comp
+	r1 := comp.RTopOhm
+	h := comp.RBottomOhm / (comp.RTopOhm + comp.RBottomOhm)
+	fi := 1 / (2 * math.Pi * r1 * (c.C1F + c.C2F))
+	fz := 1 / (2 * math.Pi * c.R2Ohm * c.C1F)
+	fp := 1 / (2 * math.Pi * c.R2Ohm * c.C1F * c.C2F / (c.C1F + c.C2F))
+	src, _ := builtinFS.ReadFile("scenarios/marginal.toml")
+	s := strings.Replace(string(src), "r2_ohm = 30e3\nc1_f = 4.7e-9\nc2_f = 100e-12",
+		fmt.Sprintf("integrator_hz = %.17g\nzeros_hz = [%.17g]\npoles_hz = [%.17g]", fi/h, fz, fp), 1)
+	if s == string(src) {
+		t.Fatal("component lines not found in marginal.toml")
+	}
+	pz, err := ParseScenario("pz.toml", []byte(s))
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, f := range []float64{10, 300, 3e3, 30e3, 90e3} {
+		a, _ := comp.Loop("", f)
+		b, _ := pz.Loop("", f)
+		if cmplx.Abs(a/b-1) > 1e-9 {
+			t.Errorf("%g Hz: components %v, poles/zeros %v", f, a, b)
+		}
 	}
 }

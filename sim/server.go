@@ -90,6 +90,7 @@ type Server struct {
 
 	gl, dl net.Listener
 	wg     sync.WaitGroup
+	quit   chan struct{} // closed by Close: ends waits for acquisitions
 }
 
 type genState struct {
@@ -183,7 +184,7 @@ func Start(opt Options) (*Server, error) {
 
 // newServer is the instruments' state without listeners.
 func newServer(sc *Scenario, op OperatingPoint, opt Options) *Server {
-	s := &Server{epoch: time.Now(), sc: sc, op: op, faults: opt.Faults, conns: map[net.Conn]bool{}}
+	s := &Server{epoch: time.Now(), sc: sc, op: op, faults: opt.Faults, conns: map[net.Conn]bool{}, quit: make(chan struct{})}
 	s.b = newBench(sc, op, opt.Seed)
 	s.resetGen()
 	s.resetDig()
@@ -269,6 +270,7 @@ func (s *Server) Close() error {
 		return nil
 	}
 	s.closed = true
+	close(s.quit)
 	for c := range s.conns {
 		c.Close()
 	}
@@ -280,6 +282,24 @@ func (s *Server) Close() error {
 }
 
 func (s *Server) now() float64 { return time.Since(s.epoch).Seconds() }
+
+// waitAcquisition waits until a's record is generated and its real
+// acquisition time is over; false if the server closed first.
+func (s *Server) waitAcquisition(a *acquisition) bool {
+	select {
+	case <-a.done:
+	case <-s.quit:
+		return false
+	}
+	t := time.NewTimer(time.Until(a.end))
+	defer t.Stop()
+	select {
+	case <-t.C:
+		return true
+	case <-s.quit:
+		return false
+	}
+}
 
 func (s *Server) push(gen bool, e scpiError) {
 	q := &s.digQ

@@ -350,3 +350,19 @@ func TestFaults(t *testing.T) {
 		t.Error("a dropped link turned the output off; a real generator keeps it on")
 	}
 }
+
+// Close does not wait for a long acquisition that a client is waiting on.
+func TestCloseDuringLongAcquisition(t *testing.T) {
+	s, err := Start(Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	d := dial(t, s.DigAddr())
+	d.send("SENS:SWE:POIN 1000000;:SENS:SWE:TINT 1e-3;:INIT;*OPC?") // 1000 s
+	time.Sleep(50 * time.Millisecond)
+	t0 := time.Now()
+	s.Close()
+	if el := time.Since(t0); el > 2*time.Second {
+		t.Errorf("Close took %v", el)
+	}
+}
