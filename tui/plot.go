@@ -102,9 +102,18 @@ func (m plotModel) View() string {
 	// Value ranges first: they fix the label width.
 	gLo, gHi := 0.0, 0.0
 	pLo, pHi := -180.0, -180.0
+	// Flagged points do not set the scale when there are enough others:
+	// one wild reading must not flatten the curve (it is drawn clipped at
+	// the pane's edge instead).
+	good := 0
+	for _, p := range m.pts {
+		if p.Has && p.Quality != qFlagged {
+			good++
+		}
+	}
 	any := false
 	for _, p := range m.pts {
-		if !p.Has {
+		if !p.Has || (good >= 2 && p.Quality == qFlagged) {
 			continue
 		}
 		any = true
@@ -233,8 +242,8 @@ func (m plotModel) View() string {
 			g, k = glyphFlagged, clsFlagged
 		}
 		xp := x(p.FreqHz)
-		gc.mark(xp, ga.y(p.GainDB), g, k)
-		pc.mark(xp, pa.y(p.PhaseDeg), g, k)
+		gc.mark(xp, clampInt(ga.y(p.GainDB), 0, gc.dotH()-1), g, k)
+		pc.mark(xp, clampInt(pa.y(p.PhaseDeg), 0, pc.dotH()-1), g, k)
 	}
 	if m.active >= 0 && m.active < len(m.pts) && m.pts[m.active].FreqHz > 0 {
 		gc.mark(x(m.pts[m.active].FreqHz), 0, glyphActive, clsActive)
@@ -382,3 +391,5 @@ func padRight(s string, w int) string {
 	}
 	return s + strings.Repeat(" ", w-len(r))
 }
+
+func clampInt(v, lo, hi int) int { return min(max(v, lo), hi) }

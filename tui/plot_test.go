@@ -252,3 +252,29 @@ func TestMarginsShownMatchClosedForm(t *testing.T) {
 }
 
 func strconv1(x float64) string { return fmt.Sprintf("%.1f", x) }
+
+func TestPlotScaleIgnoresWildFlaggedPoint(t *testing.T) {
+	st := newStyles(plainRenderer())
+	s := testSession(31, 31)
+	base := plotOf(t, &st, s, 100, 21, -1, nil)
+	// Point 5 is flagged (testSession); make its reading absurd.
+	s.Points[5].Attempts[0].GainDB = 200
+	s.Points[5].Attempts[1].GainDB = 200
+	s.Points[5].Attempts[2].GainDB = 200
+	wild := plotOf(t, &st, s, 100, 21, -1, nil)
+	labels := func(lines []string) string {
+		var b strings.Builder
+		for _, l := range lines {
+			if i := strings.IndexAny(l, "┤│└"); i >= 0 {
+				b.WriteString(l[:i] + "\n")
+			}
+		}
+		return b.String()
+	}
+	if labels(base) != labels(wild) {
+		t.Errorf("a flagged 200 dB point changed the axis:\n%s\nvs\n%s", labels(base), labels(wild))
+	}
+	if !strings.ContainsRune(strings.Join(wild[:10], "\n"), glyphFlagged) {
+		t.Error("the flagged point's mark is not drawn (clamped to the pane's edge)")
+	}
+}
