@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"flag"
+	"fmt"
 	"math"
 	"math/cmplx"
 	"os"
@@ -702,4 +703,37 @@ func FuzzReadCSV(f *testing.F) {
 			t.Fatalf("%d rows back, want %d", len(back), len(pts))
 		}
 	})
+}
+
+func ExampleReadCSV() {
+	in := "# loop gain from a circuit simulator\n" +
+		"frequency_hz,gain_db,phase_deg\n" +
+		"100,20,-100\n" +
+		"1000,0,-170\n" +
+		"10000,-20,175\n"
+	pts, err := ReadCSV(strings.NewReader(in), "loop.csv")
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	for _, p := range pts {
+		fmt.Printf("%g Hz %g dB %g°\n", p.FreqHz, p.GainDB, p.PhaseDeg)
+	}
+	_, err = ReadCSV(strings.NewReader("frequency_hz,gain_db,phase_deg\n100,x,3\n"), "bad.csv")
+	fmt.Println(err)
+	// Output:
+	// 100 Hz 20 dB -100°
+	// 1000 Hz 0 dB -170°
+	// 10000 Hz -20 dB -185°
+	// bad.csv:2:5: gain_db: "x" is not a finite number
+}
+
+func ExampleParseSession() {
+	_, err := ParseSession([]byte(`{"schema": 2, "points": []}`), "future.json")
+	fmt.Println(err)
+	_, err = ParseSession([]byte("{\"schema\": 1,\n \"points\": [{\"freq_hz\": 100,"), "cut.json")
+	fmt.Println(err)
+	// Output:
+	// future.json: schema 2 is newer than this build of loopsweep reads (1); use a newer loopsweep: unsupported session schema
+	// cut.json:2:29 (byte 42): truncated or unterminated JSON (unexpected end of JSON input)
 }
