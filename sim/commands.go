@@ -33,6 +33,8 @@ var commonTable = []entry{
 	mk("*RST", func(s *Server, c command, _ []int) result { return s.reset(c) }, nil),
 	mk("*CLS", func(s *Server, c command, _ []int) result { return s.clearStatus(c) }, nil),
 	mk("*WAI", func(s *Server, c command, _ []int) result { return result{} }, nil),
+	mk("*OPC", func(s *Server, c command, _ []int) result { return result{} }, nil),
+	mk("*STB", nil, func(s *Server, c command, _ []int) result { return text("0") }),
 	mk("*ESR", nil, func(s *Server, c command, _ []int) result { return text("0") }),
 	mk("SYSTem:ERRor[:NEXT]", nil, func(s *Server, c command, _ []int) result { return s.nextError(c) }),
 }
@@ -164,7 +166,7 @@ func (s *Server) dispatch(c command, gen bool) result {
 // needsArg: every setting except the argument-free ones.
 func needsArg(e entry) bool {
 	switch e.pat[0].long {
-	case "*RST", "*CLS", "*WAI", "INITIATE":
+	case "*RST", "*CLS", "*WAI", "*OPC", "INITIATE":
 		return false
 	}
 	return true

@@ -214,8 +214,12 @@ func (b *bench) recordPiece(c1, c2 []int16, first int, t0, dt float64, s1, s2 ch
 	sat := sc.Meas.SaturationV
 	// DC of each channel: the operating point, the generator's offset on
 	// x, and its regulated effect on y.
-	dcY := vout - sg.offV*b.t0
-	dcX := dcY + sg.offV
+	off := sg.offV
+	if !sg.on {
+		off = 0 // the generator's output relay disconnects its offset too
+	}
+	dcY := vout - off*b.t0
+	dcX := dcY + off
 	if s1.ac {
 		dcX = 0
 	}
