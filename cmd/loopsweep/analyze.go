@@ -45,6 +45,9 @@ type input struct {
 	fromCSV bool
 	sum     sweep.SummaryJSON
 	curve   []analysis.Point // chosen attempts, phase unwrapped (Session.Curve)
+	// marginsErr says why the margins could not be computed ("" when
+	// they were, or for a ratio session).
+	marginsErr string
 }
 
 // loadInput reads a session (a file starting with a JSON object) or a
@@ -73,9 +76,10 @@ func loadInput(path string) (*input, error) {
 	if in.label == "" {
 		in.label = filepath.Base(path)
 	}
-	in.sum, err = sweep.Summary(in.session)
-	if err != nil {
-		return nil, fmt.Errorf("%s: %w", path, err)
+	// A session too short for margins (an interrupted sweep) still has
+	// its points to show: keep the summary and say why margins are absent.
+	if in.sum, err = sweep.Summary(in.session); err != nil {
+		in.marginsErr = err.Error()
 	}
 	in.curve = in.session.Curve()
 	return in, nil
@@ -141,6 +145,7 @@ type derivedJSON struct {
 type analyzeJSON struct {
 	File           string `json:"file"`
 	OperatingPoint string `json:"operating_point"`
+	MarginsError   string `json:"margins_error,omitempty"` // why the margins are null, when not for want of a crossing
 	sweep.SummaryJSON
 	derivedJSON
 }
@@ -280,7 +285,7 @@ func runAnalyze(args []string, stdout, stderr io.Writer) error {
 	case *asJSON:
 		objs := make([]analyzeJSON, len(ins))
 		for i, in := range ins {
-			objs[i] = analyzeJSON{File: in.path, OperatingPoint: in.session.OperatingPoint, SummaryJSON: in.sum, derivedJSON: ds[i]}
+			objs[i] = analyzeJSON{File: in.path, OperatingPoint: in.session.OperatingPoint, MarginsError: in.marginsErr, SummaryJSON: in.sum, derivedJSON: ds[i]}
 		}
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")
@@ -354,7 +359,9 @@ func writeAnalysis(w io.Writer, in *input, d derivedJSON, tg targets) error {
 			fmt.Fprintf(w, "note (%s): %s\n", n.At.Format("2006-01-02 15:04"), n.Text)
 		}
 	}
-	if err := in.sum.WriteText(w); err != nil {
+	if in.marginsErr != "" {
+		fmt.Fprintf(w, "points: %d measured, %d flagged\nmargins: not computed (%s)\n", len(in.sum.Points), in.sum.Flagged, in.marginsErr)
+	} else if err := in.sum.WriteText(w); err != nil {
 		return err
 	}
 	if in.sum.Measure != sweep.MeasureRatio {

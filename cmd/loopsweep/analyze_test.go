@@ -447,3 +447,24 @@ func TestAnalyzeEqualsLiveSweep(t *testing.T) {
 		}
 	}
 }
+
+// An interrupted session with a single point has no margins but is not
+// bad input: analyze shows the point and says why; plot needs a curve.
+func TestAnalyzeTooFewPoints(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "one.json")
+	doc := `{"schema":1,"points":[{"freq_hz":100,"attempts":[{"gain_db":3,"phase_deg":-100}]},{"freq_hz":200,"attempts":[]}]}`
+	if err := os.WriteFile(path, []byte(doc), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	code, out, errs := runLoopsweep("analyze", path)
+	if code != 0 || !strings.Contains(out, "points: 1 measured") || !strings.Contains(out, "margins: not computed") {
+		t.Errorf("exit %d\n%s%s", code, out, errs)
+	}
+	a := analyzeJSONOf(t, path)
+	if a.MarginsError == "" || a.PhaseMarginDeg != nil || len(a.Points) != 1 {
+		t.Errorf("json: %+v", a)
+	}
+	if code, _, errs := runLoopsweep("plot", path, "-o", filepath.Join(t.TempDir(), "p.svg")); code != 2 || !strings.Contains(errs, "at least 2") {
+		t.Errorf("plot: exit %d %s", code, errs)
+	}
+}

@@ -101,8 +101,8 @@ func runPlot(args []string, stdout, stderr io.Writer) error {
 		if err != nil {
 			return err
 		}
-		if len(in.curve) == 0 {
-			return badInput("%s: no measured points to plot", f)
+		if len(in.curve) < 2 {
+			return badInput("%s: %d measured points; a curve needs at least 2", f, len(in.curve))
 		}
 		ins = append(ins, in)
 	}
