@@ -485,9 +485,10 @@ func digInit(s *Server, _ command, _ []int) result {
 	t0 := s.now()
 	start := s.epoch.Add(time.Duration(t0 * float64(time.Second)))
 	a := &acquisition{
-		done:  make(chan struct{}),
-		end:   start.Add(time.Duration(float64(n) * dt * float64(time.Second))),
-		setup: [2]chanSetup{s.effectiveSetup(0), s.effectiveSetup(1)},
+		done:   make(chan struct{}),
+		end:    start.Add(time.Duration(float64(n) * dt * float64(time.Second))),
+		setup:  [2]chanSetup{s.effectiveSetup(0), s.effectiveSetup(1)},
+		format: s.dig.format, swapped: s.dig.swapped,
 	}
 	snap := *s.b
 	n1, n2 := s.b.noiseOffsets()
@@ -495,6 +496,8 @@ func digInit(s *Server, _ command, _ []int) result {
 	go func() {
 		a.c1, a.c2 = make([]int16, n), make([]int16, n)
 		snap.record(a.c1, a.c2, t0, dt, a.setup[0], a.setup[1], n1, n2)
+		a.enc[0] = encodeRecord(a.c1, a.setup[0], a.format, a.swapped)
+		a.enc[1] = encodeRecord(a.c2, a.setup[1], a.format, a.swapped)
 		close(a.done)
 	}()
 	return result{}
@@ -530,6 +533,9 @@ func (s *Server) traceData(c command) result {
 	}
 	if !s.waitAcquisition(a) {
 		return fail(scpiError{-200, "Execution error"})
+	}
+	if format == a.format && swapped == a.swapped {
+		return a.enc[i]
 	}
 	codes := a.c1
 	if i == 1 {

@@ -114,7 +114,11 @@ type acquisition struct {
 	end    time.Time
 	c1, c2 []int16
 	setup  [2]chanSetup
-	format string
+	// both channels encoded in the format and byte order in force at
+	// INITiate, ready for the fetch while the acquisition time passes
+	format  string
+	swapped bool
+	enc     [2]result
 }
 
 type scpiError struct {
