@@ -39,14 +39,14 @@ const (
 	neighbourSigmas      = 5.0
 	neighbourAllowDB     = 3.0
 	neighbourAllowDeg    = 20.0
-	refineNearRel        = 0.01 // a tone within 1% of a crossing counts as "at" it (tones move up to 0.5%)
+	refineNearRel        = 0.003 // a tone within 0.3% of a crossing counts as "at" it (tones move up to 0.2%)
 	refineTriesPerTarget = 3
 	// maxRecordS caps a record's duration for retries and refinement
 	// (the plan's own cycles are always taken).
 	maxRecordS = 0.25
 	// refineFreqRel: refinement also aims at a crossing frequency known
-	// to 0.25% (one standard uncertainty).
-	refineFreqRel = 0.0025
+	// to 0.1% (one standard uncertainty).
+	refineFreqRel = 0.001
 )
 
 func (e *Engine) interrupted() bool {
@@ -171,7 +171,13 @@ func (e *Engine) refineJobLocked() (job, bool) {
 				continue
 			}
 			e.refineTry[key]++
-			return job{freq: t.f, insert: true, reason: "refine", cyclesX: 2, attempts: 1}, true
+			// Measure the new point as well as the crossing needs.
+			cx := 2
+			if a, ok := e.sess.Chosen(near); ok && t.need {
+				grow := math.Min(math.Max(2*t.grow, 2), 1000)
+				cx = max(cx, int(math.Ceil(a.Cycles*grow/float64(e.set.Cycles))))
+			}
+			return job{freq: t.f, insert: true, reason: "refine", cyclesX: cx, attempts: 1}, true
 		}
 		if t.need {
 			// Re-measure the noisiest of the point at the crossing and its
@@ -773,7 +779,7 @@ func (e *Engine) actualInterval(ctx context.Context, want instr.CaptureSettings,
 
 // Record planning limits (engineering choices).
 const (
-	maxToneShift   = 0.005 // the tone may move by 0.5% to fit the record
+	maxToneShift   = 0.002 // the tone may move by 0.2% to fit the record
 	maxRippleDenom = 1000  // largest q tried for f_sw·dt = p/q
 	maxCycleGrowth = 20    // cycles may grow to 20× to hold the ripple whole
 )
@@ -784,7 +790,7 @@ const (
 // holds whole ripple cycles: the ripple's alias then falls exactly on a
 // DFT bin and leaks nothing into the tone's (rectangular window over
 // whole cycles: the bins are orthogonal). The search takes c from cycles
-// up, the first plan whose tone is within 0.5% of f (else the closest),
+// up, the first plan whose tone is within 0.2% of f (else the closest),
 // and skips plans whose ripple bin is the tone's or its 2nd or 3rd
 // harmonic's. Without fsw it is wholeCyclePoints.
 func recordFor(cycles int, f, dt, fsw float64, maxP int) (n int, c float64, rippleBin int, ok bool) {
@@ -803,6 +809,8 @@ func recordFor(cycles int, f, dt, fsw float64, maxP int) (n int, c float64, ripp
 		return n, c, -1, fsw == 0
 	}
 	r := f * dt
+	// Leave room for the search below the record limit.
+	cycles = max(1, min(cycles, int(float64(maxP)*r/1.25)))
 	bestN, bestC, bestA, bestShift := 0, 0, 0, math.Inf(1)
 	for c := cycles; c <= cycles*maxCycleGrowth; c++ {
 		n := q * int(math.Round(float64(c)/(r*float64(q))))
