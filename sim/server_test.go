@@ -366,3 +366,38 @@ func TestCloseDuringLongAcquisition(t *testing.T) {
 		t.Errorf("Close took %v", el)
 	}
 }
+
+func TestTruncateDelayAndSetLoad(t *testing.T) {
+	s := startServer(t, Options{})
+	d := dial(t, s.DigAddr())
+	d.send("SENS:SWE:POIN 1000;INIT")
+	d.query("*OPC?")
+	s.SetFaults(Faults{TruncateBlocks: 1})
+	d.send("TRAC:DATA? CH1")
+	hdr := make([]byte, 6)
+	io.ReadFull(d.r, hdr)
+	if string(hdr) != "#44000" {
+		t.Fatalf("header %q, want #44000", hdr)
+	}
+	d.c.SetReadDeadline(time.Now().Add(300 * time.Millisecond))
+	n, _ := io.ReadFull(d.r, make([]byte, 4001))
+	if n >= 4000 {
+		t.Errorf("truncated block delivered %d of 4000 bytes", n)
+	}
+
+	g := dial(t, s.GenAddr())
+	s.SetFaults(Faults{ReplyDelay: 150 * time.Millisecond})
+	t0 := time.Now()
+	g.query("*IDN?")
+	if el := time.Since(t0); el < 150*time.Millisecond {
+		t.Errorf("reply after %v, want the 150 ms delay", el)
+	}
+	s.SetFaults(Faults{})
+
+	if err := s.SetLoad("light"); err != nil || s.Load() != "light" {
+		t.Errorf("SetLoad light: %v, load %s", err, s.Load())
+	}
+	if err := s.SetLoad("overload"); err == nil || !strings.Contains(err.Error(), `"overload"`) {
+		t.Errorf("SetLoad overload: %v", err)
+	}
+}
