@@ -233,8 +233,6 @@ func (b *bench) recordPiece(c1, c2 []int16, first int, t0, dt float64, s1, s2 ch
 	sigmaN := sc.Meas.NoiseVrms
 	trE := b.tr.e0 * complex(sc.Meas.TransientGain, 0)
 	trDecay := cmplx.Exp(complex(-b.sigma*dt, b.wd*dt))
-	rot := cmplx.Exp(complex(0, w*dt))
-	rotR := cmplx.Exp(complex(0, wr*dt))
 
 	const block = 1024 // the noise table's length is a multiple
 	lsb1, lsb2 := s1.lsb(), s2.lsb()
@@ -247,7 +245,6 @@ func (b *bench) recordPiece(c1, c2 []int16, first int, t0, dt float64, s1, s2 ch
 	if !on {
 		amp = 0
 	}
-	yr, yi := real(sg.y), imag(sg.y)
 	// The soft limit acts inside the loop (the power stage's swing), so
 	// the loop corrects its deviation: y = u + |S|·(g(u) − u) with
 	// S = 1/(1+L) at the tone (the harmonics are scaled alike).
@@ -261,10 +258,16 @@ func (b *bench) recordPiece(c1, c2 []int16, first int, t0, dt float64, s1, s2 ch
 	sn1, sn2 := float64(sigmaN)*inv1, float64(sigmaN)*inv2
 	n1, n2 = n1&^(block-1), n2&^(block-1)
 	var ybuf, vbuf [block]float64
+	// e^(jω·k·dt) and e^(jωr·k·dt) for k in one block, exact
+	var tabT, tabR [block]complex128
+	for k := range min(block, len(c1)) {
+		tabT[k] = cmplx.Exp(complex(0, w*dt*float64(k)))
+		tabR[k] = cmplx.Exp(complex(0, wr*dt*float64(k)))
+	}
 	for start := 0; start < len(c1); start += block {
 		end := min(start+block, len(c1))
 		t := t0 + float64(start)*dt
-		// exact phasors at the block start; recursion inside the block
+		// exact phasors at the block start
 		th := sg.phase + w*(t-sg.start)
 		zt := cmplx.Exp(complex(0, th))
 		zr := cmplx.Exp(complex(0, wr*t))
@@ -280,11 +283,18 @@ func (b *bench) recordPiece(c1, c2 []int16, first int, t0, dt float64, s1, s2 ch
 		nz1 := noise[o1 : o1+len(out1)]
 		nz2 := noise[o2 : o2+len(out1)]
 		out2 = out2[:len(out1)]
-		// pass 1: the output's AC part y and the tone on x, per sample
+		// pass 1: the output's AC part y and the tone on x. Each sample's
+		// phasor is the block start's times a tabulated rotation, so no
+		// sample waits for the previous one.
 		yb, vb := ybuf[:len(out1)], vbuf[:len(out1)]
+		yz := sg.y * zt
+		yzr, yzi := real(yz), imag(yz)
+		ar, ai := amp*real(zt), amp*imag(zt)
+		rr, ri := ripA*real(zr), ripA*imag(zr)
+		tt, tr := tabT[:len(yb)], tabR[:len(yb)]
 		for k := range yb {
-			ct, st := real(zt), imag(zt)
-			u := yr*ct - yi*st
+			c, sn := real(tt[k]), imag(tt[k])
+			u := yzr*c - yzi*sn
 			if withTr {
 				u += real(ze)
 				ze *= trDecay
@@ -298,10 +308,9 @@ func (b *bench) recordPiece(c1, c2 []int16, first int, t0, dt float64, s1, s2 ch
 			} else {
 				y = u + ks*(softLimit(u, sat)-u)
 			}
-			yb[k] = y + ripA*imag(zr)
-			vb[k] = amp * ct
-			zt *= rot
-			zr *= rotR
+			rc, rs := real(tr[k]), imag(tr[k])
+			yb[k] = y + rr*rs + ri*rc // ripA·Im(zr·e^(jωr·k·dt))
+			vb[k] = ar*c - ai*sn      // amp·Re(zt·e^(jω·k·dt))
 		}
 		// passes 2 and 3: codes (v − offset)/lsb, rounded half up, clipped
 		for k, y := range yb {
