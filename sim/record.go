@@ -312,24 +312,25 @@ func (b *bench) recordPiece(c1, c2 []int16, first int, t0, dt float64, s1, s2 ch
 			yb[k] = y + rr*rs + ri*rc // ripA·Im(zr·e^(jωr·k·dt))
 			vb[k] = ar*c - ai*sn      // amp·Re(zt·e^(jω·k·dt))
 		}
-		// passes 2 and 3: codes (v − offset)/lsb, rounded half up, clipped
+		// pass 2: codes (v − offset)/lsb, rounded half up, clipped
+		nz2 = nz2[:len(yb)]
+		out1, out2 = out1[:len(yb)], out2[:len(yb)]
+		vb = vb[:len(yb)]
 		for k, y := range yb {
-			q := base1 + (y+vb[k])*inv1 + float64(nz1[k])*sn1
-			if q > hi1 {
-				q = hi1
-			} else if q < lo1 {
-				q = lo1
+			q1 := base1 + (y+vb[k])*inv1 + float64(nz1[k])*sn1
+			q2 := base2 + y*inv2 + float64(nz2[k])*sn2
+			if q1 > hi1 {
+				q1 = hi1
+			} else if q1 < lo1 {
+				q1 = lo1
 			}
-			out1[k] = int16(int32(q+65536.5) - 65536)
-		}
-		for k, y := range yb {
-			q := base2 + y*inv2 + float64(nz2[k])*sn2
-			if q > hi2 {
-				q = hi2
-			} else if q < lo2 {
-				q = lo2
+			if q2 > hi2 {
+				q2 = hi2
+			} else if q2 < lo2 {
+				q2 = lo2
 			}
-			out2[k] = int16(int32(q+65536.5) - 65536)
+			out1[k] = int16(int32(q1+65536.5) - 65536)
+			out2[k] = int16(int32(q2+65536.5) - 65536)
 		}
 	}
 }
