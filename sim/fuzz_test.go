@@ -1,6 +1,7 @@
 package sim
 
 import (
+	"math/cmplx"
 	"regexp"
 	"strings"
 	"testing"
@@ -70,6 +71,44 @@ func FuzzCommandLine(f *testing.F) {
 		for _, ch := range d.ch {
 			if ch.rangeV < MinRangeV || ch.rangeV > MaxRangeV {
 				t.Fatalf("range %g out of limits", ch.rangeV)
+			}
+		}
+	})
+}
+
+// FuzzParseScenario: any input either fails with an error naming the
+// source, or gives a scenario whose values are physical and whose loop
+// gain is finite at 1 kHz.
+func FuzzParseScenario(f *testing.F) {
+	for _, n := range builtinOrder {
+		b, err := builtinFS.ReadFile("scenarios/" + n + ".toml")
+		if err != nil {
+			f.Fatal(err)
+		}
+		f.Add(string(b))
+	}
+	f.Add("name = \"x\"\n[power_stage]\nvin_v = -1\n")
+	f.Fuzz(func(t *testing.T, src string) {
+		sc, err := ParseScenario("fuzz.toml", []byte(src))
+		if err != nil {
+			if !strings.Contains(err.Error(), "fuzz.toml") {
+				t.Fatalf("error %q does not name the file", err)
+			}
+			return
+		}
+		if !(sc.VinV > 0 && sc.InductanceH > 0 && sc.CapacitanceF > 0 && sc.RampVpp > 0 && sc.VoutV() < sc.VinV && len(sc.Points) > 0) {
+			t.Fatalf("non-physical scenario accepted: %+v", sc)
+		}
+		for _, p := range sc.Points {
+			if !(p.LoadOhm > 0) {
+				t.Fatalf("load %g accepted", p.LoadOhm)
+			}
+			l, err := sc.Loop(p.Name, 1e3)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if cmplx.IsNaN(l) {
+				t.Fatalf("L(1 kHz) = %v", l)
 			}
 		}
 	})

@@ -163,7 +163,11 @@ func (s *Scenario) Loop(load string, f float64) (complex128, error) {
 	if !(f > 0) || math.IsInf(f, 0) {
 		return 0, fmt.Errorf("loop gain at %g Hz: not a positive finite frequency", f)
 	}
-	return s.loop(op.LoadOhm).eval(complex(0, 2*math.Pi*f)), nil
+	l := s.loop(op.LoadOhm).eval(complex(0, 2*math.Pi*f))
+	if cmplx.IsNaN(l) || cmplx.IsInf(l) {
+		return 0, fmt.Errorf("loop gain at %g Hz: %v, the scenario's values overflow", f, l)
+	}
+	return l, nil
 }
 
 // GainCrossing is one frequency where |L| = 1.

@@ -356,8 +356,20 @@ func (p *parser) positive(key string, v *float64) float64 {
 		p.fail(key, fmt.Sprintf("%g is not a positive finite value", *v))
 		return 0
 	}
+	if *v < minValue || *v > maxValue {
+		p.fail(key, fmt.Sprintf("%g is outside %g to %g, not a physical value for a converter", *v, minValue, maxValue))
+		return 0
+	}
 	return *v
 }
+
+// The span of magnitudes a scenario's values may take (in their SI
+// units): wide enough for any bench converter, narrow enough that L(s)
+// cannot overflow.
+const (
+	minValue = 1e-15
+	maxValue = 1e9
+)
 
 func (p *parser) nonNegative(key string, v *float64, def float64) float64 {
 	if v == nil {
@@ -365,6 +377,10 @@ func (p *parser) nonNegative(key string, v *float64, def float64) float64 {
 	}
 	if !(*v >= 0) || math.IsInf(*v, 0) {
 		p.fail(key, fmt.Sprintf("%g is negative or not finite", *v))
+		return 0
+	}
+	if *v > maxValue || (*v != 0 && *v < minValue) {
+		p.fail(key, fmt.Sprintf("%g is outside %g to %g, not a physical value for a converter", *v, minValue, maxValue))
 		return 0
 	}
 	return *v
@@ -379,8 +395,8 @@ func (p *parser) freqs(key string, v []float64, want int) []float64 {
 		p.fail(key, fmt.Sprintf("%d values, a type %s compensator has %d", len(v), map[int]string{1: "II", 2: "III"}[want], want))
 	}
 	for _, f := range v {
-		if !(f > 0) || math.IsInf(f, 0) {
-			p.fail(key, fmt.Sprintf("%g Hz is not a positive finite frequency", f))
+		if !(f > 0) || math.IsInf(f, 0) || f < minValue || f > maxValue {
+			p.fail(key, fmt.Sprintf("%g Hz is not a positive frequency up to %g Hz", f, maxValue))
 		}
 	}
 	return append([]float64(nil), v...)
