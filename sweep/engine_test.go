@@ -650,7 +650,9 @@ func TestSwitchingRippleKeptOffTheTone(t *testing.T) {
 		for i, p := range sess.Points {
 			a, _ := sess.Chosen(i)
 			want := 20 * math.Log10(cmplx.Abs(r.bench.L(a.FreqHz)))
-			if d := math.Abs(a.GainDB - want); d > w {
+			// The error beyond three of the point's own standard
+			// uncertainties (noise alone rarely exceeds it).
+			if d := math.Abs(a.GainDB-want) - 3*a.GainSigmaDB; d > w {
 				w = d
 			}
 			if rel := math.Abs(a.FreqHz/p.FreqHz - 1); rel > 0.01 {
@@ -660,7 +662,7 @@ func TestSwitchingRippleKeptOffTheTone(t *testing.T) {
 		return w
 	}
 	unknown, known := worst(0), worst(301e3)
-	t.Logf("worst gain error: %.3f dB with f_sw unknown, %.3f dB with it known", unknown, known)
+	t.Logf("worst gain error beyond 3σ: %.3f dB with f_sw unknown, %.3f dB with it known", unknown, known)
 	if unknown < 0.5 {
 		t.Errorf("the ripple hardly biases (%.3f dB): the test does not exercise it", unknown)
 	}

@@ -148,61 +148,65 @@ func (e *Engine) refineJobLocked() (job, bool) {
 		r := math.Max(sq(p.SigmaDB/e.set.RefineGMDB), sq(p.SigmaFreqHz/(refineFreqRel*p.FreqHz)))
 		ts = append(ts, target{p.FreqHz, r > 1, r})
 	}
-	for _, t := range ts {
-		if !(t.f > 0) || !finite(t.f) {
-			continue
-		}
-		near, dist := -1, math.Inf(1)
-		for i, p := range e.sess.Points {
-			f := p.FreqHz
-			if a, ok := e.sess.Chosen(i); ok {
-				f = a.Tone(f)
-			}
-			if d := math.Abs(math.Log(f / t.f)); d < dist {
-				near, dist = i, d
-			}
-		}
-		if near < 0 {
-			continue
-		}
-		if dist > refineNearRel {
-			key := math.Round(math.Log(t.f)/refineNearRel) * refineNearRel
-			if e.refineTry[key] >= refineTriesPerTarget {
+	// First put a point at every crossing that has none near it (the
+	// interpolation error is not in the uncertainty), then re-measure.
+	for pass := 0; pass < 2; pass++ {
+		for _, t := range ts {
+			if !(t.f > 0) || !finite(t.f) {
 				continue
 			}
-			e.refineTry[key]++
-			// Measure the new point as well as the crossing needs.
-			cx := 2
-			if a, ok := e.sess.Chosen(near); ok && t.need {
-				grow := math.Min(math.Max(2*t.grow, 2), 1000)
-				cx = max(cx, int(math.Ceil(a.Cycles*grow/float64(e.set.Cycles))))
+			near, dist := -1, math.Inf(1)
+			for i, p := range e.sess.Points {
+				f := p.FreqHz
+				if a, ok := e.sess.Chosen(i); ok {
+					f = a.Tone(f)
+				}
+				if d := math.Abs(math.Log(f / t.f)); d < dist {
+					near, dist = i, d
+				}
 			}
-			return job{freq: t.f, insert: true, reason: "refine", cyclesX: cx, attempts: 1}, true
-		}
-		if t.need {
-			// Re-measure the noisiest of the point at the crossing and its
-			// two neighbours, with the cycles its uncertainty asks for.
-			best, bestScore := -1, 0.0
-			for _, i := range []int{near - 1, near, near + 1} {
-				a, ok := e.sess.Chosen(i)
-				if !ok || e.refineTry[-e.sess.Points[i].FreqHz] >= refineTriesPerTarget {
+			if near < 0 {
+				continue
+			}
+			if pass == 0 && dist > refineNearRel {
+				key := math.Round(math.Log(t.f)/refineNearRel) * refineNearRel
+				if e.refineTry[key] >= refineTriesPerTarget {
 					continue
 				}
-				if sc := attemptScore(a); best < 0 || sc > bestScore {
-					best, bestScore = i, sc
+				e.refineTry[key]++
+				// Measure the new point as well as the crossing needs.
+				cx := 2
+				if a, ok := e.sess.Chosen(near); ok && t.need {
+					grow := math.Min(math.Max(2*t.grow, 2), 1000)
+					cx = max(cx, int(math.Ceil(a.Cycles*grow/float64(e.set.Cycles))))
 				}
+				return job{freq: t.f, insert: true, reason: "refine", cyclesX: cx, attempts: 1}, true
 			}
-			if best < 0 {
-				continue
+			if pass == 1 && dist <= refineNearRel && t.need {
+				// Re-measure the noisiest of the point at the crossing and its
+				// two neighbours, with the cycles its uncertainty asks for.
+				best, bestScore := -1, 0.0
+				for _, i := range []int{near - 1, near, near + 1} {
+					a, ok := e.sess.Chosen(i)
+					if !ok || e.refineTry[-e.sess.Points[i].FreqHz] >= refineTriesPerTarget {
+						continue
+					}
+					if sc := attemptScore(a); best < 0 || sc > bestScore {
+						best, bestScore = i, sc
+					}
+				}
+				if best < 0 {
+					continue
+				}
+				p := e.sess.Points[best]
+				a, _ := e.sess.Chosen(best)
+				e.refineTry[-p.FreqHz]++
+				// The crossing's uncertainty comes from the points around it:
+				// give this one the variance ratio the crossing still lacks.
+				grow := math.Min(math.Max(2*t.grow, 2), 1000)
+				cyc := int(math.Ceil(a.Cycles * grow / float64(e.set.Cycles)))
+				return job{freq: p.FreqHz, reason: "refine", cyclesX: max(cyc, 2), attempts: 1}, true
 			}
-			p := e.sess.Points[best]
-			a, _ := e.sess.Chosen(best)
-			e.refineTry[-p.FreqHz]++
-			// The crossing's uncertainty comes from the points around it:
-			// give this one the variance ratio the crossing still lacks.
-			grow := math.Min(math.Max(2*t.grow, 2), 1000)
-			cyc := int(math.Ceil(a.Cycles * grow / float64(e.set.Cycles)))
-			return job{freq: p.FreqHz, reason: "refine", cyclesX: max(cyc, 2), attempts: 1}, true
 		}
 	}
 	return job{}, false

@@ -1,0 +1,198 @@
+package sweep
+
+// Acceptance tests against the simulated bench over real loopback TCP:
+// the sim package's SCPI server, the instr drivers with the built-in
+// generic profiles, and the engine at default settings.
+
+import (
+	"context"
+	"math"
+	"testing"
+	"time"
+
+	"loopsweep/analysis"
+	"loopsweep/instr"
+	"loopsweep/sim"
+)
+
+// simRig is a running simulator with both instruments connected.
+type simRig struct {
+	srv *sim.Server
+	gen *instr.Generator
+	dig *instr.Digitizer
+	gs  *instr.Session
+	ds  *instr.Session
+}
+
+func startSim(t testing.TB, scenario, load string) *simRig {
+	t.Helper()
+	srv, err := sim.Start(sim.Options{Listen: "127.0.0.1:0", Scenario: scenario, Load: load})
+	if err != nil {
+		t.Fatalf("start sim %s/%s: %v", scenario, load, err)
+	}
+	t.Cleanup(func() { srv.Close() })
+	open := func(addr string) *instr.Session {
+		c, err := instr.Open(addr, instr.Options{})
+		if err != nil {
+			t.Fatalf("open %s: %v", addr, err)
+		}
+		t.Cleanup(func() { c.Close() })
+		return instr.NewSession(c, 5*time.Second)
+	}
+	r := &simRig{srv: srv, gs: open(srv.GenAddr()), ds: open(srv.DigAddr())}
+	gp, err := instr.BuiltinProfile("generator")
+	if err != nil {
+		t.Fatal(err)
+	}
+	dp, err := instr.BuiltinProfile("digitizer")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r.gen, err = instr.NewGenerator(r.gs, gp); err != nil {
+		t.Fatal(err)
+	}
+	if r.dig, err = instr.NewDigitizer(r.ds, dp); err != nil {
+		t.Fatal(err)
+	}
+	return r
+}
+
+func (r *simRig) config(s Settings) Config {
+	return Config{
+		Settings:    s,
+		Gen:         r.gen,
+		Dig:         r.dig,
+		ACCoupling:  r.dig.SupportsAC(),
+		FixedOffset: !r.dig.SupportsOffset(),
+		MaxPoints:   r.dig.MaxPoints(),
+	}
+}
+
+// physicalMinimum is the time a sweep cannot go below: for every point,
+// the settling wait at its tone plus the capture time of its chosen
+// attempt (record length × actual sample interval).
+func physicalMinimum(s Session) time.Duration {
+	var d time.Duration
+	for i, p := range s.Points {
+		a, ok := s.Chosen(i)
+		if !ok {
+			continue
+		}
+		d += s.Settings.SettleTime(a.Tone(p.FreqHz))
+		d += time.Duration(float64(a.RecordLength) * a.IntervalS * float64(time.Second))
+	}
+	return d
+}
+
+// BenchmarkSweepOverhead runs a default sweep (no refinement) against the
+// simulator and reports wall time over the physical minimum measured in
+// the same run (target: at most 1.10).
+func BenchmarkSweepOverhead(b *testing.B) {
+	r := startSim(b, "", "")
+	s := Defaults()
+	s.StartHz, s.StopHz = 200, 20e3
+	s.RefineBudget = 0
+	var wall, phys time.Duration
+	for i := 0; i < b.N; i++ {
+		e, err := New(r.config(s))
+		if err != nil {
+			b.Fatal(err)
+		}
+		t0 := time.Now()
+		if err := e.Run(context.Background()); err != nil {
+			b.Fatal(err)
+		}
+		wall += time.Since(t0)
+		phys += physicalMinimum(e.Snapshot())
+	}
+	b.ReportMetric(float64(wall)/float64(phys), "wall/physical")
+	b.ReportMetric(phys.Seconds()/float64(b.N), "physical-s/op")
+}
+
+// Tolerances of issue 5's acceptance: PM within 1°, GM within 0.5 dB,
+// crossover frequencies within 1% of the model's truth.
+const (
+	acceptPMDeg   = 1.0
+	acceptGMDB    = 0.5
+	acceptFreqRel = 0.01
+)
+
+func TestAcceptanceBuiltinScenarios(t *testing.T) {
+	if testing.Short() {
+		t.Skip("acceptance sweeps take real time")
+	}
+	for _, sc := range sim.Builtin() {
+		for _, load := range sc.Loads() {
+			t.Run(sc.Name+"/"+load, func(t *testing.T) {
+				t.Parallel()
+				truth, err := sc.TrueMargins(load)
+				if err != nil {
+					t.Fatal(err)
+				}
+				r := startSim(t, sc.Name, load)
+				e, err := New(r.config(simDefaults(sc)))
+				if err != nil {
+					t.Fatal(err)
+				}
+				if err := e.Run(context.Background()); err != nil {
+					t.Fatalf("Run: %v", err)
+				}
+				if r.srv.OutputOn() {
+					t.Errorf("simulator output left on")
+				}
+				s := e.Snapshot()
+				m, err := s.Margins()
+				if err != nil {
+					t.Fatal(err)
+				}
+				checkMargins(t, m, truth)
+			})
+		}
+	}
+}
+
+func checkMargins(t *testing.T, m analysis.Margins, truth sim.TrueMargins) {
+	t.Helper()
+	if truth.CrossoverHz == nil {
+		if m.WorstPM >= 0 {
+			t.Errorf("measured a gain crossover at %g Hz; the model has none in band", m.GainCrossovers[m.WorstPM].FreqHz)
+		}
+	} else if m.WorstPM < 0 {
+		t.Errorf("no gain crossover measured; the model's is at %g Hz", *truth.CrossoverHz)
+	} else {
+		g := m.GainCrossovers[m.WorstPM]
+		if d := math.Abs(g.FreqHz / *truth.CrossoverHz - 1); d > acceptFreqRel {
+			t.Errorf("crossover %.4g Hz, model %.4g Hz (%.2f%%)", g.FreqHz, *truth.CrossoverHz, 100*d)
+		}
+		if d := math.Abs(g.PhaseMarginDeg - *truth.PhaseMarginDeg); d > acceptPMDeg {
+			t.Errorf("PM %.2f°, model %.2f°", g.PhaseMarginDeg, *truth.PhaseMarginDeg)
+		}
+		t.Logf("crossover %.4g Hz (model %.4g), PM %.2f° ± %.2f (model %.2f°)", g.FreqHz, *truth.CrossoverHz, g.PhaseMarginDeg, g.SigmaDeg, *truth.PhaseMarginDeg)
+	}
+	if truth.PhaseCrossoverHz == nil {
+		if m.WorstGM >= 0 {
+			t.Errorf("measured a phase crossover at %g Hz; the model has none in band", m.PhaseCrossovers[m.WorstGM].FreqHz)
+		}
+	} else if m.WorstGM < 0 {
+		t.Errorf("no phase crossover measured; the model's is at %g Hz", *truth.PhaseCrossoverHz)
+	} else {
+		p := m.PhaseCrossovers[m.WorstGM]
+		if d := math.Abs(p.FreqHz / *truth.PhaseCrossoverHz - 1); d > acceptFreqRel {
+			t.Errorf("phase crossover %.4g Hz, model %.4g Hz (%.2f%%)", p.FreqHz, *truth.PhaseCrossoverHz, 100*d)
+		}
+		if d := math.Abs(p.GainMarginDB - *truth.GainMarginDB); d > acceptGMDB {
+			t.Errorf("GM %.2f dB, model %.2f dB", p.GainMarginDB, *truth.GainMarginDB)
+		}
+		t.Logf("phase crossover %.4g Hz (model %.4g), GM %.2f dB ± %.2f (model %.2f dB)", p.FreqHz, *truth.PhaseCrossoverHz, p.GainMarginDB, p.SigmaDB, *truth.GainMarginDB)
+	}
+}
+
+// simDefaults are the settings `loopsweep sweep --sim` uses with no
+// flags: the defaults, with the converter's switching frequency known
+// and the plan stopping at half of it.
+func simDefaults(sc *sim.Scenario) Settings {
+	s := Defaults()
+	s.SwitchingHz = sc.SwitchingHz
+	s.StopHz = sc.SwitchingHz / 2
+	return s
+}
