@@ -150,6 +150,10 @@ func mkNode(s string, opt bool) patNode {
 		s = s[:len(s)-1]
 	}
 	n.long = strings.ToUpper(s)
+	if strings.HasPrefix(s, "*") {
+		n.short = n.long // common commands have one form
+		return n
+	}
 	for _, r := range s {
 		if unicode.IsUpper(r) {
 			n.short += string(r)

@@ -135,8 +135,13 @@ func TestGeneratorCommands(t *testing.T) {
 	}
 	g.send("FREQ 3e9")         // above MaxFreqHz: -222
 	g.send("BOGUS:THING 1")    // -113
+	g.send("IDN?")             // -113: a common command needs its '*' (sent as a query: no reply)
+	g.send("SYST:ERR?")
 	g.send("OUTP1:STAT MAYBE") // -224
-	for _, want := range []string{`-222,"Data out of range"`, `-113,"Undefined header"`, `-224,"Illegal parameter value"`, `0,"No error"`} {
+	if got, _ := g.r.ReadString('\n'); got != "-222,\"Data out of range\"\n" {
+		t.Errorf("first error %q", got)
+	}
+	for _, want := range []string{`-113,"Undefined header"`, `-113,"Undefined header"`, `-224,"Illegal parameter value"`, `0,"No error"`} {
 		if got := g.query("SYSTem:ERRor:NEXT?"); got != want {
 			t.Errorf("SYST:ERR? %q, want %q", got, want)
 		}
