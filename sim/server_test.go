@@ -133,9 +133,9 @@ func TestGeneratorCommands(t *testing.T) {
 	if got := g.query("FREQ 300;:FREQ?;OUTP?"); got != "300;0" {
 		t.Errorf("compound line: %q, want %q", got, "300;0")
 	}
-	g.send("FREQ 3e9")         // above MaxFreqHz: -222
-	g.send("BOGUS:THING 1")    // -113
-	g.send("IDN?")             // -113: a common command needs its '*' (sent as a query: no reply)
+	g.send("FREQ 3e9")      // above MaxFreqHz: -222
+	g.send("BOGUS:THING 1") // -113
+	g.send("IDN?")          // -113: a common command needs its '*' (sent as a query: no reply)
 	g.send("SYST:ERR?")
 	g.send("OUTP1:STAT MAYBE") // -224
 	if got, _ := g.r.ReadString('\n'); got != "-222,\"Data out of range\"\n" {
