@@ -720,6 +720,19 @@ func (e *Engine) planRecord(ctx context.Context, want instr.CaptureSettings, f f
 	// With a switching frequency, other sample intervals are tried when
 	// the ripple's alias cannot be put on a bin of its own at the first.
 	base := want.IntervalS
+	// An interval the digitizer already chose, giving between 0.8 and 2.5
+	// times the wanted samples per cycle, is asked for as is: it needs no
+	// Configure to learn how the digitizer rounds it.
+	bestKnown := 0.0
+	for _, dt := range e.dtCache {
+		if r := base / dt; r >= 0.4 && r <= 1.25 && (bestKnown == 0 || math.Abs(math.Log(r)) < math.Abs(math.Log(base/bestKnown))) {
+			bestKnown = dt
+		}
+	}
+	if bestKnown > 0 {
+		base = bestKnown
+		e.dtCache[bestKnown] = bestKnown
+	}
 	var (
 		fn, fc float64
 		fb     = -1
