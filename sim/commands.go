@@ -98,6 +98,14 @@ func matchWord(a, long string) bool {
 // execute runs one command for the generator (gen) or digitizer. ok is
 // false when there is nothing to send (a setting, or an error queued).
 func (s *Server) execute(part string, gen bool) (out []byte, block, ok bool) {
+	return s.executeIn(part, gen, nil)
+}
+
+// executeIn is execute with the SCPI-1999 compound-command rule: a
+// command after ';' without a leading ':' is first looked up under the
+// previous command's path (all but its last node), then from the root.
+// *path is updated for the next command (common commands leave it).
+func (s *Server) executeIn(part string, gen bool, path *[]string) (out []byte, block, ok bool) {
 	c, valid := parseCommand(part)
 	c.gen = gen
 	if !valid {
@@ -107,6 +115,16 @@ func (s *Server) execute(part string, gen bool) (out []byte, block, ok bool) {
 			s.mu.Unlock()
 		}
 		return nil, false, false
+	}
+	if path != nil && !c.common {
+		if len(*path) > 0 && !strings.HasPrefix(strings.TrimSpace(part), ":") {
+			rel := c
+			rel.nodes = append(append([]string(nil), *path...), c.nodes...)
+			if known(rel, gen) {
+				c = rel
+			}
+		}
+		*path = append((*path)[:0], c.nodes[:len(c.nodes)-1]...)
 	}
 	var r result
 	switch {
@@ -127,6 +145,25 @@ func (s *Server) execute(part string, gen bool) (out []byte, block, ok bool) {
 		return nil, false, false
 	}
 	return r.reply, r.block, true
+}
+
+// known reports whether c's header names a command of the instrument.
+func known(c command, gen bool) bool {
+	if matches(opcEntry, c) || (!gen && matches(traceEntry, c)) {
+		return true
+	}
+	tables := [][]entry{commonTable, digTable}
+	if gen {
+		tables[1] = genTable
+	}
+	for _, t := range tables {
+		for _, e := range t {
+			if matches(e, c) {
+				return true
+			}
+		}
+	}
+	return false
 }
 
 func matches(e entry, c command) bool {

@@ -10,8 +10,9 @@ import (
 // Each command is a header (":"-separated nodes, each a mnemonic with an
 // optional numeric suffix, a trailing '?' for a query, or a common
 // command "*XXX") and optional comma-separated parameters after white
-// space. Every header is taken from the root, with or without a leading
-// ':' (the compound "relative path" rule of SCPI-1999 is not modelled).
+// space. A header with a leading ':' is taken from the root; one without,
+// after ';', first under the previous command's path and then from the
+// root (SCPI-1999's compound rule, made lenient).
 
 // command is one parsed command.
 type command struct {

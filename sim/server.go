@@ -354,6 +354,7 @@ func (s *Server) serve(c net.Conn, gen bool) {
 			return
 		}
 		var reply []byte
+		var path []string
 		blockAt := -1
 		drop := false
 		for _, part := range splitCommands(line) {
@@ -361,7 +362,7 @@ func (s *Server) serve(c net.Conn, gen bool) {
 				drop = true
 				break
 			}
-			out, isBlock, ok := s.execute(part, gen)
+			out, isBlock, ok := s.executeIn(part, gen, &path)
 			if !ok {
 				continue
 			}

@@ -207,6 +207,11 @@ func TestDigitizerSettingsReadBack(t *testing.T) {
 			t.Errorf("SYST:ERR? %q, want %q", got, want)
 		}
 	}
+	// compound commands: OFFS is looked up under SENS2:VOLT: first
+	// (SCPI-1999 relative path), RANG? likewise; ":SENS1..." is absolute
+	if got := d.query("SENS2:VOLT:RANG 0.5;OFFS 1.25;RANG?;OFFS?;:SENS1:VOLT:OFFS?"); got != "0.5;1.25;3.3" {
+		t.Errorf("compound with relative paths: %q, want %q", got, "0.5;1.25;3.3")
+	}
 	d.send("INP1:COUP AC")
 	if got := d.query("INPut1:COUPling?"); got != "AC" {
 		t.Errorf("coupling %q", got)
