@@ -7,6 +7,7 @@ package sweep
 import (
 	"context"
 	"math"
+	"math/cmplx"
 	"testing"
 	"time"
 
@@ -211,4 +212,131 @@ func simDefaults(sc *sim.Scenario) Settings {
 	s.SwitchingHz = sc.SwitchingHz
 	s.StopHz = sc.SwitchingHz / 2
 	return s
+}
+
+// pointErrors returns the largest |measured − model| gain error in dB
+// over the chosen attempts, and the largest in units of the point's own
+// standard uncertainty.
+func pointErrors(t *testing.T, s Session, sc *sim.Scenario, load string) (worstDB, worstSigmas float64) {
+	t.Helper()
+	for i, p := range s.Points {
+		a, ok := s.Chosen(i)
+		if !ok {
+			continue
+		}
+		L, err := sc.Loop(load, a.Tone(p.FreqHz))
+		if err != nil {
+			t.Fatal(err)
+		}
+		d := math.Abs(a.GainDB - 20*math.Log10(cmplx.Abs(L)))
+		worstDB = math.Max(worstDB, d)
+		worstSigmas = math.Max(worstSigmas, d/math.Max(a.GainSigmaDB, 1e-3))
+	}
+	return worstDB, worstSigmas
+}
+
+func TestSimClippingCorrected(t *testing.T) {
+	if testing.Short() {
+		t.Skip("sweeps take real time")
+	}
+	sc, err := sim.LoadScenario("well-compensated")
+	if err != nil {
+		t.Fatal(err)
+	}
+	r := startSim(t, sc.Name, "full")
+	s := simDefaults(sc)
+	s.StartHz, s.StopHz, s.PerDecade = 2000, 20e3, 5
+	s.RefineBudget = 0
+	c := r.config(s)
+	c.InitialRangeV = 1e-3 // the 10 mV injection clips a 1 mV window at once
+	e, err := New(c)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := e.Run(context.Background()); err != nil {
+		t.Fatal(err)
+	}
+	sess := e.Snapshot()
+	for i, p := range sess.Points {
+		a, _ := sess.Chosen(i)
+		if a.Ch1.Clipped || a.Ch2.Clipped {
+			t.Errorf("%g Hz: the chosen attempt clipped", p.FreqHz)
+		}
+		if a.Ch1.RangeV <= 1e-3 && a.Ch2.RangeV <= 1e-3 {
+			t.Errorf("%g Hz: range never grew from 1 mV", p.FreqHz)
+		}
+	}
+	if _, sig := pointErrors(t, sess, sc, "full"); sig > 4 {
+		t.Errorf("worst gain error %.1fσ after clipping was corrected", sig)
+	}
+}
+
+func TestSimPauseResumeRemeasureOutputOff(t *testing.T) {
+	if testing.Short() {
+		t.Skip("sweeps take real time")
+	}
+	sc, err := sim.LoadScenario("marginal")
+	if err != nil {
+		t.Fatal(err)
+	}
+	r := startSim(t, sc.Name, "")
+	s := simDefaults(sc)
+	s.StartHz, s.StopHz, s.PerDecade = 1000, 10e3, 5
+	s.RefineBudget = 0
+	c := r.config(s)
+	c.Linger = true
+	ch := make(chan Event)
+	c.Events = ch
+	e, err := New(c)
+	if err != nil {
+		t.Fatal(err)
+	}
+	done := make(chan error, 1)
+	go func() { done <- e.Run(context.Background()) }()
+	measured, phase := 0, 0
+	for ev := range ch {
+		switch ev := ev.(type) {
+		case PointMeasured:
+			measured++
+			if measured == 2 && phase == 0 {
+				e.Pause()
+			}
+		case StateChanged:
+			switch {
+			case ev.State == Paused && phase == 0:
+				phase = 1
+				if r.srv.OutputOn() {
+					t.Errorf("simulator output on while paused")
+				}
+				e.Resume()
+			case ev.State == Done && phase == 1:
+				phase = 2
+				ov := e.Settings()
+				ov.Cycles = 50
+				if err := e.Remeasure(1, &ov); err != nil {
+					t.Error(err)
+				}
+			case ev.State == Done && phase == 2:
+				phase = 3
+				if r.srv.OutputOn() {
+					t.Errorf("simulator output on after the sweep")
+				}
+				e.Stop()
+			}
+		}
+	}
+	if err := <-done; err != nil {
+		t.Fatal(err)
+	}
+	if phase != 3 {
+		t.Fatalf("reached phase %d of 3 (pause, re-measure, stop)", phase)
+	}
+	if r.srv.OutputOn() {
+		t.Errorf("simulator output on after Stop")
+	}
+	sess := e.Snapshot()
+	p := sess.Points[1]
+	if len(p.Attempts) < 2 || p.Attempts[len(p.Attempts)-1].Reason != "user" || p.Attempts[len(p.Attempts)-1].Cycles < 50-1e-3 {
+		t.Errorf("point 1 lacks the user's 50-cycle re-measure: %d attempts", len(p.Attempts))
+	}
 }
