@@ -18,6 +18,9 @@ var (
 	// had been set, so the generator would have injected whatever level
 	// it was left at.
 	ErrNoAmplitude = errors.New("output enabled before the amplitude was set")
+	// ErrShutdown: the guard was shut down (Shutdown); the output stays
+	// off and no amplitude is sent any more.
+	ErrShutdown = errors.New("generator shut down for exit")
 )
 
 // Guard ramp parameters: with the output on, a step up of more than
@@ -55,6 +58,7 @@ type Guard struct {
 	on     bool    // the output as last commanded successfully
 	ampV   float64 // the amplitude last accepted by the generator; 0: none yet
 	failed bool    // an output command failed: the state is unknown, assume on
+	down   bool    // Shutdown was called: refuse everything but off
 }
 
 var _ Generator = (*Guard)(nil)
@@ -104,6 +108,9 @@ func (gd *Guard) SetAmplitude(ctx context.Context, vpp float64) error {
 	}
 	gd.mu.Lock()
 	defer gd.mu.Unlock()
+	if gd.down {
+		return fmt.Errorf("guard: amplitude %g Vpp: %w", vpp, ErrShutdown)
+	}
 	if (gd.on || gd.failed) && gd.ampV > 0 {
 		for a := gd.ampV * GuardRampRatio; a < vpp; a *= GuardRampRatio {
 			if err := ctx.Err(); err != nil {
@@ -130,6 +137,9 @@ func (gd *Guard) SetAmplitude(ctx context.Context, vpp float64) error {
 func (gd *Guard) SetOutput(ctx context.Context, on bool) error {
 	gd.mu.Lock()
 	defer gd.mu.Unlock()
+	if on && gd.down {
+		return fmt.Errorf("guard: turn the output on: %w", ErrShutdown)
+	}
 	if on && !(gd.ampV > 0) {
 		return fmt.Errorf("guard: turn the output on: %w", ErrNoAmplitude)
 	}
@@ -158,6 +168,17 @@ func (gd *Guard) Off() error {
 		return fmt.Errorf("guard: turn the output off: %w", err)
 	}
 	return nil
+}
+
+// Shutdown latches the guard shut and turns the output off (as Off):
+// from then on SetAmplitude and SetOutput(true) fail with ErrShutdown,
+// so a sweep goroutine still running while the process exits cannot turn
+// the output back on. Calling it again only repeats the off.
+func (gd *Guard) Shutdown() error {
+	gd.mu.Lock()
+	gd.down = true
+	gd.mu.Unlock()
+	return gd.Off()
 }
 
 // DrainErrors forwards to the wrapped generator's error queue when it

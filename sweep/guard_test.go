@@ -291,3 +291,29 @@ func TestGuardUnknownStateAfterFailedOff(t *testing.T) {
 		t.Error("output on after a successful Off")
 	}
 }
+
+// TestGuardShutdownLatches: after Shutdown nothing but off reaches the
+// generator.
+func TestGuardShutdownLatches(t *testing.T) {
+	r := &recGen{capV: 1}
+	g, _ := NewGuard(r, 1, func(time.Duration) {})
+	ctx := context.Background()
+	_ = g.SetAmplitude(ctx, 0.1)
+	_ = g.SetOutput(ctx, true)
+	if err := g.Shutdown(); err != nil {
+		t.Fatal(err)
+	}
+	r.calls = nil
+	if err := g.SetAmplitude(ctx, 0.1); !errors.Is(err, ErrShutdown) {
+		t.Errorf("amplitude after Shutdown: err = %v, want ErrShutdown", err)
+	}
+	if err := g.SetOutput(ctx, true); !errors.Is(err, ErrShutdown) {
+		t.Errorf("output on after Shutdown: err = %v, want ErrShutdown", err)
+	}
+	if err := g.SetOutput(ctx, false); err != nil {
+		t.Errorf("output off after Shutdown: %v", err)
+	}
+	if fmt.Sprint(r.calls) != "[output false]" || r.on {
+		t.Errorf("after Shutdown the generator got %q (on %v), want only an off", r.calls, r.on)
+	}
+}
