@@ -17,14 +17,15 @@ type result struct {
 	err   *scpiError
 }
 
-// handler runs one command with s.mu held, unless the entry is marked
-// unlocked (commands that wait for real time lock for themselves).
+// handler runs one command with s.mu held, with the numeric suffixes of
+// the header's suffixed nodes.
 type handler func(s *Server, c command, sfx []int) result
 
+// entry is one header of a command table: its setting and its query
+// (nil when the instrument has none).
 type entry struct {
 	pat      pattern
 	set, get handler
-	unlocked bool
 }
 
 func mk(p string, set, get handler) entry { return entry{pat: compilePattern(p), set: set, get: get} }
@@ -72,9 +73,10 @@ var digTable = []entry{
 	mk("TRACe:OFFSet", nil, digTraceOffset),
 }
 
-// unlocked entries, looked up before the tables above.
-var opcEntry = entry{pat: compilePattern("*OPC"), unlocked: true}
-var traceEntry = entry{pat: compilePattern("TRACe[:DATA]"), unlocked: true}
+// Queries that wait for an acquisition's real time: run without s.mu
+// held (they lock for themselves), looked up before the tables above.
+var opcEntry = entry{pat: compilePattern("*OPC")}
+var traceEntry = entry{pat: compilePattern("TRACe[:DATA]")}
 
 func text(s string) result    { return result{reply: []byte(s)} }
 func num(v float64) result    { return text(fmtNum(v)) }
