@@ -6,6 +6,7 @@ import (
 	"strings"
 	"time"
 
+	"loopsweep/analysis"
 	"loopsweep/sweep"
 )
 
@@ -55,7 +56,7 @@ func viewPoints(s *sweep.Session) []pointView {
 			v.SNRdB = math.Min(a.Ch1.SNRdB, a.Ch2.SNRdB)
 			ph := a.PhaseDeg
 			if havePrev {
-				ph = prev + wrapDeg(ph-prev)
+				ph = prev + analysis.WrapDeg(ph-prev)
 			}
 			v.PhaseDeg = ph
 			prev, havePrev = ph, true
@@ -63,17 +64,6 @@ func viewPoints(s *sweep.Session) []pointView {
 		out[i] = v
 	}
 	return out
-}
-
-// wrapDeg wraps an angle in degrees to (−180, 180].
-func wrapDeg(d float64) float64 {
-	d = math.Mod(d, 360)
-	if d > 180 {
-		d -= 360
-	} else if d <= -180 {
-		d += 360
-	}
-	return d
 }
 
 func finite(x float64) bool { return !math.IsNaN(x) && !math.IsInf(x, 0) }

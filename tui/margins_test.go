@@ -77,11 +77,6 @@ func TestFormatHelpers(t *testing.T) {
 			t.Errorf("decadeLabel(%d) = %q, want %q", exp, got, want)
 		}
 	}
-	for _, c := range []struct{ in, want float64 }{{190, -170}, {-180, 180}, {180, 180}, {-190, 170}, {540, 180}, {0, 0}} {
-		if got := wrapDeg(c.in); got != c.want {
-			t.Errorf("wrapDeg(%g) = %g, want %g", c.in, got, c.want)
-		}
-	}
 }
 
 func TestViewPointsUnwrapsPhase(t *testing.T) {
