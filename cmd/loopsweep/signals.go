@@ -10,6 +10,8 @@ import (
 	"sync"
 	"syscall"
 	"time"
+
+	"loopsweep/instr"
 )
 
 // safetySignals are the signals that end a sweep: Ctrl-C, a kill from a
@@ -164,4 +166,57 @@ func signalNumber(sig os.Signal) int {
 		return int(n)
 	}
 	return 1
+}
+
+// offOverFreshLink turns a generator's output off over a new connection
+// to addr, for when the sweep's own link is lost: an instrument keeps
+// its output on when its cable or socket goes away, so the old session
+// cannot make the bench safe. It sends the profile's output_off command
+// and, when the profile has an output_query, reads the state back and
+// fails if the output is still on. Each exchange has the given timeout.
+func offOverFreshLink(addr string, p *instr.Profile, timeout time.Duration) error {
+	if p == nil || p.Generator == nil {
+		return fmt.Errorf("turn the output off over a new link to %s: not a generator profile", addr)
+	}
+	c, err := instr.Open(addr, instr.Options{})
+	if err != nil {
+		return fmt.Errorf("turn the output off over a new link: %w", err)
+	}
+	defer c.Close()
+	s := instr.NewSession(c, timeout)
+	ctx, cancel := context.WithTimeout(context.Background(), 2*timeout)
+	defer cancel()
+	if err := s.Write(ctx, p.Generator.OutputOff); err != nil {
+		return fmt.Errorf("turn the output off over a new link: %w", err)
+	}
+	if q := p.Generator.OutputQuery; q != "" {
+		r, err := s.Query(ctx, q)
+		if err != nil {
+			return fmt.Errorf("read the output state over a new link: %w", err)
+		}
+		on, err := instr.ParseBool(r)
+		if err != nil {
+			return fmt.Errorf("read the output state over a new link: %s: %w", q, err)
+		}
+		if on {
+			return fmt.Errorf("generator %s: the output is still ON after %q", addr, p.Generator.OutputOff)
+		}
+	}
+	return nil
+}
+
+// offWithFallback returns an off function for safety: primary (the
+// sweep's own generator, e.g. a sweep.Guard's Off), and when it fails,
+// offOverFreshLink to addr. The error names both failures.
+func offWithFallback(primary func() error, addr string, p *instr.Profile, timeout time.Duration) func() error {
+	return func() error {
+		err := primary()
+		if err == nil {
+			return nil
+		}
+		if ferr := offOverFreshLink(addr, p, timeout); ferr != nil {
+			return fmt.Errorf("%w; over a new link: %v (the output may still be ON: switch it off at the instrument)", err, ferr)
+		}
+		return nil
+	}
 }

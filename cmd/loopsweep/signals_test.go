@@ -3,6 +3,8 @@ package main
 import (
 	"bufio"
 	"errors"
+	"fmt"
+	"net"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -10,6 +12,9 @@ import (
 	"syscall"
 	"testing"
 	"time"
+
+	"loopsweep/instr"
+	"loopsweep/sim"
 )
 
 // The helper process: the test binary re-executed with
@@ -187,5 +192,64 @@ func TestSafetyInProcess(t *testing.T) {
 	}
 	if s.Context().Err() == nil {
 		t.Error("context not cancelled by Done")
+	}
+}
+
+// rawCommand sends SCPI lines to addr over a plain socket (not instr), to
+// put the simulator in a state behind the code under test.
+func rawCommand(t *testing.T, addr string, lines ...string) net.Conn {
+	t.Helper()
+	c, err := net.Dial("tcp", addr)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, l := range lines {
+		if _, err := fmt.Fprintf(c, "%s\n", l); err != nil {
+			t.Fatal(err)
+		}
+	}
+	// A query answered means every line before it was executed.
+	fmt.Fprintf(c, "*OPC?\n")
+	if _, err := bufio.NewReader(c).ReadString('\n'); err != nil {
+		t.Fatal(err)
+	}
+	return c
+}
+
+// TestOffOverFreshLink: the sweep's link is dropped with the output on
+// (the simulator keeps it on, as a real generator does); a new link
+// turns it off. Commands are the built-in generic profile's SCPI-1999
+// tree (README, "Profiles").
+func TestOffOverFreshLink(t *testing.T) {
+	srv, err := sim.Start(sim.Options{Listen: "127.0.0.1:0"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer srv.Close()
+	p, err := instr.BuiltinProfile("generator")
+	if err != nil {
+		t.Fatal(err)
+	}
+	c := rawCommand(t, srv.GenAddr(), "SOURce1:VOLTage 0.01", "OUTPut1:STATe ON")
+	defer c.Close()
+	if !srv.OutputOn() {
+		t.Fatal("set-up: the output did not come on")
+	}
+	srv.DropConnections()
+	primary := func() error { return errors.New("write: broken pipe") }
+	if err := offWithFallback(primary, srv.GenAddr(), p, 2*time.Second)(); err != nil {
+		t.Fatalf("off with fallback: %v", err)
+	}
+	if srv.OutputOn() {
+		t.Error("output still on after the off over a new link")
+	}
+	// Nothing listening: both failures are named and the user is told
+	// to act.
+	l, _ := net.Listen("tcp", "127.0.0.1:0")
+	dead := l.Addr().String()
+	l.Close()
+	err = offWithFallback(primary, dead, p, 300*time.Millisecond)()
+	if err == nil || !strings.Contains(err.Error(), "broken pipe") || !strings.Contains(err.Error(), "may still be ON") {
+		t.Errorf("off to a dead address: err = %v, want both failures and the warning", err)
 	}
 }
