@@ -32,6 +32,12 @@ func startSim(t testing.TB, scenario, load string) *simRig {
 		t.Fatalf("start sim %s/%s: %v", scenario, load, err)
 	}
 	t.Cleanup(func() { srv.Close() })
+	return connectSim(t, srv)
+}
+
+// connectSim connects the generic-profile drivers to a running simulator.
+func connectSim(t testing.TB, srv *sim.Server) *simRig {
+	t.Helper()
 	open := func(addr string) *instr.Session {
 		c, err := instr.Open(addr, instr.Options{})
 		if err != nil {

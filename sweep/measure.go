@@ -739,7 +739,7 @@ func (e *Engine) planRecord(ctx context.Context, want instr.CaptureSettings, f f
 		fdt    float64
 		found  bool
 	)
-	for i, k := range []float64{1, 0.5, 0.2, 0.1, 2} {
+	for i, k := range []float64{1, 0.5, 0.2, 0.1, 0.05, 0.02, 2} {
 		w := want
 		w.IntervalS = base * k
 		if i > 0 && 1/(f*w.IntervalS) < 1.5*minPerCycleMin {
