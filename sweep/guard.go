@@ -19,7 +19,9 @@ var (
 	// it was left at.
 	ErrNoAmplitude = errors.New("output enabled before the amplitude was set")
 	// ErrShutdown: the guard was shut down (Shutdown); the output stays
-	// off and no amplitude is sent any more.
+	// off and no amplitude is sent any more. The errors carrying it also
+	// wrap context.Canceled, so an engine whose context was cancelled for
+	// the same exit treats them as the interruption they are.
 	ErrShutdown = errors.New("generator shut down for exit")
 )
 
@@ -109,7 +111,7 @@ func (gd *Guard) SetAmplitude(ctx context.Context, vpp float64) error {
 	gd.mu.Lock()
 	defer gd.mu.Unlock()
 	if gd.down {
-		return fmt.Errorf("guard: amplitude %g Vpp: %w", vpp, ErrShutdown)
+		return fmt.Errorf("guard: amplitude %g Vpp: %w (%w)", vpp, ErrShutdown, context.Canceled)
 	}
 	if (gd.on || gd.failed) && gd.ampV > 0 {
 		for a := gd.ampV * GuardRampRatio; a < vpp; a *= GuardRampRatio {
@@ -138,7 +140,7 @@ func (gd *Guard) SetOutput(ctx context.Context, on bool) error {
 	gd.mu.Lock()
 	defer gd.mu.Unlock()
 	if on && gd.down {
-		return fmt.Errorf("guard: turn the output on: %w", ErrShutdown)
+		return fmt.Errorf("guard: turn the output on: %w (%w)", ErrShutdown, context.Canceled)
 	}
 	if on && !(gd.ampV > 0) {
 		return fmt.Errorf("guard: turn the output on: %w", ErrNoAmplitude)

@@ -304,8 +304,8 @@ func TestGuardShutdownLatches(t *testing.T) {
 		t.Fatal(err)
 	}
 	r.calls = nil
-	if err := g.SetAmplitude(ctx, 0.1); !errors.Is(err, ErrShutdown) {
-		t.Errorf("amplitude after Shutdown: err = %v, want ErrShutdown", err)
+	if err := g.SetAmplitude(ctx, 0.1); !errors.Is(err, ErrShutdown) || !errors.Is(err, context.Canceled) {
+		t.Errorf("amplitude after Shutdown: err = %v, want ErrShutdown and context.Canceled", err)
 	}
 	if err := g.SetOutput(ctx, true); !errors.Is(err, ErrShutdown) {
 		t.Errorf("output on after Shutdown: err = %v, want ErrShutdown", err)

@@ -29,8 +29,8 @@ const safetyGrace = 3 * time.Second
 //   - a panic in the goroutine that deferred Done, or in one started
 //     with s.Go: the cleanup runs, the panic and its stack are printed on
 //     stderr and the process exits with status 1;
-//   - SIGINT, SIGTERM or SIGHUP: the cleanup runs at once (the output
-//     goes off first) and Context is cancelled so the program can end
+//   - SIGINT, SIGTERM or SIGHUP: Context is cancelled and the cleanup
+//     runs at once (the output goes off first), so the program can end
 //     tidily; if it has not returned through Done within the grace
 //     period, or on a second signal, the process exits with status
 //     128+signal.
@@ -148,8 +148,10 @@ func (s *safety) watch() {
 		return
 	}
 	fmt.Fprintf(s.stderr, "loopsweep: %v: turning the output off and saving\n", sig)
-	s.Cleanup()
+	// Cancel first: a sweep then reads a refusal from a shut-down
+	// generator (sweep.Guard.Shutdown) as the interruption it is.
 	s.cancel()
+	s.Cleanup()
 	t := time.NewTimer(s.grace)
 	defer t.Stop()
 	select {
