@@ -259,7 +259,7 @@ func TestSafetyEndToEnd(t *testing.T) {
 		{"instrument error", "5s", func(s *sim.Server) { s.PushError(true, -222, "Data out of range") },
 			[]string{"generator reported an error", "-222", "Data out of range"}},
 		{"digitizer error", "5s", func(s *sim.Server) { s.PushError(false, -350, "Queue overflow") },
-			[]string{"reported error -350", "Queue overflow", "TRACe:DATA?"}},
+			[]string{"reported error -350", "Queue overflow", `after "`}}, // names the command it followed
 		{"delayed answers", "200ms", func(s *sim.Server) { s.SetFaults(sim.Faults{ReplyDelay: 600 * time.Millisecond}) },
 			[]string{"timeout"}},
 		{"corrupt block header", "5s", func(s *sim.Server) { s.SetFaults(sim.Faults{CorruptBlocks: 1}) },
@@ -421,4 +421,59 @@ func TestSafetySIGKILLResume(t *testing.T) {
 		t.Error("output on after the final resumed sweep")
 	}
 	t.Logf("%d kills over %d sessions", kills, sessions)
+}
+
+// TestGuardedBenchDroppedLink shows the wiring that closes the dropped
+// link case above, in process: the bench's generator behind a
+// sweep.Guard, the engine failing when the simulator drops every
+// connection mid-sweep with the output on, and the safety's off
+// (offWithFallback: the guard's Off, then a new connection) leaving the
+// simulator's output off.
+func TestGuardedBenchDroppedLink(t *testing.T) {
+	srv := startBench(t)
+	b := &bench{}
+	if err := openInstruments(b, srv.GenAddr(), srv.DigAddr(), "", "", time.Second); err != nil {
+		t.Fatal(err)
+	}
+	defer b.Close()
+	gp, err := loadProfile("gen-profile", "", "generator")
+	if err != nil {
+		t.Fatal(err)
+	}
+	set := sweep.Defaults()
+	set.StartHz, set.StopHz, set.PerDecade, set.RefineBudget = 1e3, 1e4, 10, 0
+	set.SettleMin = 30 * time.Millisecond
+	guard, err := sweep.NewGuard(b.gen, set.MaxAmpVpp, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	events := make(chan sweep.Event, 64)
+	eng, err := sweep.New(sweep.Config{Settings: set, Gen: guard, Dig: b.dig, Out: filepath.Join(t.TempDir(), "s.json"),
+		ACCoupling: b.ac, FixedOffset: b.fixedOff, MaxPoints: b.maxPoints, Events: events})
+	if err != nil {
+		t.Fatal(err)
+	}
+	saf := newSafety(offWithFallback(guard.Shutdown, srv.GenAddr(), gp, time.Second), eng.Save)
+	runErr := make(chan error, 1)
+	saf.Go(func() { runErr <- eng.Run(saf.Context()) })
+	dropped := false
+	for ev := range events {
+		if ps, ok := ev.(sweep.PointStarted); ok && ps.Index == 2 && !dropped {
+			if !srv.OutputOn() {
+				t.Fatal("output off mid-sweep: the test would prove nothing")
+			}
+			srv.DropConnections()
+			dropped = true
+		}
+	}
+	if err := <-runErr; err == nil {
+		t.Fatal("the sweep survived a dropped link")
+	}
+	if !srv.OutputOn() {
+		t.Log("note: the engine's own off reached the generator")
+	}
+	saf.Done()
+	if srv.OutputOn() {
+		t.Error("output on after the safety's cleanup")
+	}
 }
