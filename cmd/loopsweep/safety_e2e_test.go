@@ -477,3 +477,42 @@ func TestGuardedBenchDroppedLink(t *testing.T) {
 		t.Error("output on after the safety's cleanup")
 	}
 }
+
+// panicHook is the test-only environment variable that makes the sweep
+// command panic in its progress goroutine after N measured points.
+const panicHook = "LOOPSWEEP_TEST_PANIC_AFTER"
+
+// TestSafetyPanicE2E: a panic in a goroutine of the sweep command turns
+// the output off, keeps the session and exits 1 with the panic on
+// stderr. It needs the hook in sweep.go; until the hook lands it says
+// so and skips.
+func TestSafetyPanicE2E(t *testing.T) {
+	src, err := os.ReadFile("sweep.go")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !bytes.Contains(src, []byte(panicHook)) {
+		t.Skip("cmd/loopsweep/sweep.go has no " + panicHook + " hook yet (see the safety report)")
+	}
+	bin := buildSafetyBinary(t)
+	srv := startBench(t)
+	out := filepath.Join(t.TempDir(), "s.json")
+	full := append([]string{"sweep", "--gen", "tcp://" + srv.GenAddr(), "--dig", "tcp://" + srv.DigAddr(), "--headless", "--out", out}, safetyPlan...)
+	cmd := exec.Command(bin, full...)
+	cmd.Env = append(os.Environ(), panicHook+"=3")
+	var stderr bytes.Buffer
+	cmd.Stderr = &stderr
+	err = cmd.Run()
+	var ee *exec.ExitError
+	if !errors.As(err, &ee) || ee.ExitCode() != 1 {
+		t.Errorf("exit %v, want status 1; stderr:\n%s", err, stderr.String())
+	}
+	if !strings.Contains(stderr.String(), "internal error (panic)") {
+		t.Errorf("stderr lacks the panic report:\n%s", stderr.String())
+	}
+	if !outputOffSoon(srv, time.Second) {
+		t.Error("output on after a panic")
+	}
+	// Three points were measured before the panic.
+	checkSessionHolds(t, out, 3)
+}
