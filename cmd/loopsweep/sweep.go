@@ -234,6 +234,9 @@ func runSweep(args []string, stdout, stderr io.Writer) error {
 		for range events {
 		}
 		rerr := <-runErr
+		if rerr != nil {
+			b.forceOff(stderr)
+		}
 		if terr != nil {
 			return terr
 		}
@@ -247,6 +250,9 @@ func runSweep(args []string, stdout, stderr io.Writer) error {
 	}()
 	rerr := eng.Run(ctx)
 	wg.Wait()
+	if rerr != nil {
+		b.forceOff(stderr)
+	}
 	return finish(eng, rerr, f, stdout, stderr, false)
 }
 
@@ -287,7 +293,9 @@ func finish(eng *sweep.Engine, rerr error, f sweepFlags, stdout, stderr io.Write
 		}
 		fmt.Fprintf(stdout, "session: %s\n", f.out)
 	}
-	if eng.State() == sweep.Stopped {
+	if eng.State() == sweep.Stopped && !snap.Complete && !quiet {
+		// Headless, only a signal stops a sweep; on the bench screen the
+		// user's quit is a choice, not a failure.
 		return fmt.Errorf("stopped before the plan was complete; session saved to %s", f.out)
 	}
 	return nil
@@ -467,6 +475,8 @@ type bench struct {
 	maxPoints int
 	maxVpp    float64 // the generator profile's limit, 0 when none
 	simFsw    float64 // the simulated converter's switching frequency
+	genAddr   string  // for forceOff
+	genProf   *instr.Profile
 	closers   []func() error
 }
 
@@ -480,6 +490,26 @@ func (b *bench) Close() error {
 	}
 	b.closers = nil
 	return first
+}
+
+// forceOff makes sure the generator's output is off after a failed
+// sweep: the engine already sent the command, but over a connection that
+// may have died, so a fresh connection sends it again (connecting a
+// generator driver turns its output off). Errors are reported, not
+// returned: the sweep's own error is the one that matters.
+func (b *bench) forceOff(stderr io.Writer) {
+	if b.genAddr == "" || b.genProf == nil {
+		return
+	}
+	c, err := instr.Open(b.genAddr, instr.Options{DialTimeout: 2 * time.Second})
+	if err != nil {
+		fmt.Fprintf(stderr, "warning: could not reconnect to the generator at %s to turn its output off: %v\n", b.genAddr, err)
+		return
+	}
+	defer c.Close()
+	if _, err := instr.NewGenerator(instr.NewSession(c, 2*time.Second), b.genProf); err != nil {
+		fmt.Fprintf(stderr, "warning: could not turn the generator's output off at %s: %v\n", b.genAddr, err)
+	}
 }
 
 // drainingGen and drainingDig add the session's error-queue drain to a
@@ -545,6 +575,7 @@ func openInstruments(b *bench, genAddr, digAddr, genProfile, digProfile string, 
 		return badInput("--dig %s: %v", digAddr, err)
 	}
 	b.gen, b.dig = g, d
+	b.genAddr, b.genProf = genAddr, gp
 	if gp.Generator.CheckErrors {
 		b.gen = drainingGen{g, gs}
 	}
