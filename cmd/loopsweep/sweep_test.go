@@ -90,3 +90,59 @@ func TestSweepSimHeadlessJSON(t *testing.T) {
 		t.Errorf("session not saved: %v", err)
 	}
 }
+
+func TestSweepResume(t *testing.T) {
+	dir := t.TempDir()
+	out := filepath.Join(dir, "s.json")
+	args := []string{"sweep", "--sim", "--headless", "--out", out, "--start", "1k", "--stop", "10k", "--ppd", "4", "--refine-budget", "0"}
+	var stdout, stderr bytes.Buffer
+	if code := run(args, &stdout, &stderr); code != 0 {
+		t.Fatalf("first sweep: exit %d\n%s", code, stderr.String())
+	}
+	// Make it an interrupted session: the last two points unmeasured.
+	raw, err := os.ReadFile(out)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var m map[string]any
+	if err := json.Unmarshal(raw, &m); err != nil {
+		t.Fatal(err)
+	}
+	pts := m["points"].([]any)
+	if len(pts) != 5 {
+		t.Fatalf("%d points, want 5 (1 kHz to 10 kHz at 4 per decade)", len(pts))
+	}
+	first := pts[0].(map[string]any)["attempts"].([]any)[0].(map[string]any)["started"]
+	for _, p := range pts[3:] {
+		p.(map[string]any)["attempts"] = []any{}
+	}
+	m["complete"] = false
+	raw, _ = json.Marshal(m)
+	if err := os.WriteFile(out, raw, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	stdout.Reset()
+	stderr.Reset()
+	if code := run([]string{"sweep", "--sim", "--headless", "--resume", out}, &stdout, &stderr); code != 0 {
+		t.Fatalf("resume: exit %d\n%s", code, stderr.String())
+	}
+	if n := strings.Count(stderr.String(), "attempt 1"); n != 2 {
+		t.Errorf("resume measured %d points, want the 2 missing ones:\n%s", n, stderr.String())
+	}
+	raw, _ = os.ReadFile(out)
+	m = nil
+	if err := json.Unmarshal(raw, &m); err != nil {
+		t.Fatal(err)
+	}
+	if m["complete"] != true {
+		t.Errorf("resumed session not complete")
+	}
+	for i, p := range m["points"].([]any) {
+		if a := p.(map[string]any)["attempts"].([]any); len(a) == 0 {
+			t.Errorf("point %d unmeasured after resume", i)
+		}
+	}
+	if got := m["points"].([]any)[0].(map[string]any)["attempts"].([]any)[0].(map[string]any)["started"]; got != first {
+		t.Errorf("first point's attempt changed on resume: %v, was %v", got, first)
+	}
+}
