@@ -317,3 +317,87 @@ func TestGuardShutdownLatches(t *testing.T) {
 		t.Errorf("after Shutdown the generator got %q (on %v), want only an off", r.calls, r.on)
 	}
 }
+
+// checkGen forwards to a Generator and checks, from the calls alone, the
+// same invariants as recGen.
+type checkGen struct {
+	Generator
+	capV float64
+	on   bool
+	amp  float64
+	bad  []string
+}
+
+func (c *checkGen) SetAmplitude(ctx context.Context, vpp float64) error {
+	if !(vpp > 0) || vpp > c.capV {
+		c.bad = append(c.bad, fmt.Sprintf("amplitude %g Vpp (cap %g)", vpp, c.capV))
+	}
+	if c.on && c.amp > 0 && vpp > c.amp*GuardRampRatio*(1+1e-12) {
+		c.bad = append(c.bad, fmt.Sprintf("step %g -> %g Vpp with the output on", c.amp, vpp))
+	}
+	c.amp = vpp
+	return c.Generator.SetAmplitude(ctx, vpp)
+}
+
+func (c *checkGen) SetOutput(ctx context.Context, on bool) error {
+	if on && !(c.amp > 0) {
+		c.bad = append(c.bad, "output on before any amplitude")
+	}
+	c.on = on
+	return c.Generator.SetOutput(ctx, on)
+}
+
+// TestEngineThroughGuard runs the engine behind a Guard over random
+// plans, amplitude profiles (breakpoints up to twice the cap, so the
+// profile asks for more than allowed) and automatic level control: the
+// sweep completes (the engine never asks the guard for anything it must
+// refuse), and the generator sees no amplitude above the cap, no output
+// before an amplitude, no step up of more than ×2 with the output on,
+// and the output off at the end.
+func TestEngineThroughGuard(t *testing.T) {
+	ran, refused := 0, 0
+	defer func() { t.Logf("%d sweeps run through the guard, %d settings refused by New", ran, refused) }()
+	rapid.Check(t, func(rt *rapid.T) {
+		clk := newClock()
+		b := newBench(clk, injLoop3(rapid.Float64Range(0.2, 20).Draw(rt, "K"), 1000))
+		s := Defaults()
+		s.StartHz = rapid.Float64Range(50, 2000).Draw(rt, "start")
+		s.StopHz = s.StartHz * rapid.Float64Range(1.5, 30).Draw(rt, "span")
+		s.PerDecade = rapid.IntRange(2, 6).Draw(rt, "ppd")
+		s.MaxAmpVpp = rapid.Float64Range(0.001, 0.5).Draw(rt, "cap")
+		s.AmpVpp = s.MaxAmpVpp * rapid.Float64Range(0.01, 1).Draw(rt, "ampfrac")
+		s.AutoAmp = rapid.Bool().Draw(rt, "auto")
+		if rapid.Bool().Draw(rt, "profile") {
+			s.AmpProfile = []AmpBreak{
+				{s.StartHz, s.MaxAmpVpp * rapid.Float64Range(0.01, 2).Draw(rt, "p0")},
+				{s.StopHz, s.MaxAmpVpp * rapid.Float64Range(0.01, 2).Draw(rt, "p1")},
+			}
+		}
+		s.RefineBudget = 2
+		cg := &checkGen{Generator: b, capV: s.MaxAmpVpp}
+		g, err := NewGuard(cg, s.MaxAmpVpp, func(d time.Duration) { clk.advance(d) })
+		if err != nil {
+			rt.Fatal(err)
+		}
+		e, err := New(Config{Settings: s, Gen: g, Dig: b, Sleep: clk.Sleep, Now: clk.Now})
+		if err != nil {
+			// A profile above the cap is refused before any instrument
+			// is touched: nothing to check at the generator.
+			if len(cg.bad) > 0 || b.Output() {
+				rt.Fatalf("refused settings touched the generator")
+			}
+			refused++
+			return
+		}
+		if err := e.Run(context.Background()); err != nil {
+			rt.Fatalf("Run through the guard: %v", err)
+		}
+		ran++
+		if len(cg.bad) > 0 {
+			rt.Fatalf("invariants broken: %q", cg.bad)
+		}
+		if b.Output() || g.OutputOn() {
+			rt.Fatal("output left on")
+		}
+	})
+}
