@@ -516,3 +516,31 @@ func TestSafetyPanicE2E(t *testing.T) {
 	// Three points were measured before the panic.
 	checkSessionHolds(t, out, 3)
 }
+
+// TestSweepStdoutDevNull: stdout sent to /dev/null with no controlling
+// terminal (cron, nohup, a service) is "not a terminal" (README,
+// Sweeps: headless then), although /dev/null is a character device. The
+// sweep must run headless and complete, not try the bench screen.
+func TestSweepStdoutDevNull(t *testing.T) {
+	bin := buildSafetyBinary(t)
+	srv := startBench(t)
+	out := filepath.Join(t.TempDir(), "s.json")
+	devnull, err := os.OpenFile(os.DevNull, os.O_WRONLY, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer devnull.Close()
+	cmd := exec.Command(bin, "sweep", "--gen", "tcp://"+srv.GenAddr(), "--dig", "tcp://"+srv.DigAddr(),
+		"--out", out, "--start", "1k", "--stop", "10k", "--ppd", "3", "--refine-budget", "0")
+	cmd.Stdout = devnull
+	var stderr bytes.Buffer
+	cmd.Stderr = &stderr
+	cmd.SysProcAttr = &syscall.SysProcAttr{Setsid: true} // no controlling terminal
+	if err := cmd.Run(); err != nil {
+		t.Fatalf("sweep with stdout on %s: %v; stderr:\n%s", os.DevNull, err, stderr.String())
+	}
+	checkSessionHolds(t, out, 4)
+	if srv.OutputOn() {
+		t.Error("output on after the sweep")
+	}
+}
