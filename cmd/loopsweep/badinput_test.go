@@ -250,3 +250,37 @@ func TestBadInputEverywhere(t *testing.T) {
 		t.Errorf("working directory touched: %v", d)
 	}
 }
+
+// TestBadInputProfileLimit: a cap above the generator profile's own
+// max_vpp is bad input, found after connecting to a live (simulated)
+// bench but before the output is ever enabled.
+func TestBadInputProfileLimit(t *testing.T) {
+	dir := t.TempDir()
+	src := readRepoFile(t, "testdata/profiles/template-generator.toml")
+	if !strings.Contains(src, "max_vpp = 0.0") {
+		t.Fatal("template-generator.toml lost its max_vpp line")
+	}
+	prof := filepath.Join(dir, "lim.toml")
+	if err := os.WriteFile(prof, []byte(strings.Replace(src, "max_vpp = 0.0", "max_vpp = 1.0", 1)), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	srv := startBench(t)
+	before := snapshotDir(t, dir)
+	var stdout, stderr bytes.Buffer
+	code := run([]string{"sweep", "--gen", "tcp://" + srv.GenAddr(), "--dig", "tcp://" + srv.DigAddr(), "--gen-profile", prof,
+		"--max-amp", "5", "--amp", "2", "--headless", "--out", filepath.Join(dir, "s.json")}, &stdout, &stderr)
+	if code != 2 {
+		t.Errorf("exit %d, want 2; stderr:\n%s", code, stderr.String())
+	}
+	for _, w := range []string{"--max-amp", "5 Vpp", "1 Vpp"} {
+		if !strings.Contains(stderr.String(), w) {
+			t.Errorf("message lacks %q:\n%s", w, stderr.String())
+		}
+	}
+	if srv.OutputOn() {
+		t.Error("output on after a refused cap")
+	}
+	if d := diffSnapshots(before, snapshotDir(t, dir)); len(d) > 0 {
+		t.Errorf("files touched: %v", d)
+	}
+}
