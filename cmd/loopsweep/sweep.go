@@ -8,12 +8,12 @@ import (
 	"fmt"
 	"io"
 	"os"
-	"os/signal"
 	"strconv"
 	"strings"
 	"sync"
-	"syscall"
 	"time"
+
+	"github.com/mattn/go-isatty"
 
 	"loopsweep/instr"
 	"loopsweep/sim"
@@ -178,9 +178,6 @@ func runSweep(args []string, stdout, stderr io.Writer) error {
 		return badInput("--scenario and --load need --sim")
 	}
 
-	ctx, stopSignals := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM, syscall.SIGHUP)
-	defer stopSignals()
-
 	b, err := openBench(f)
 	if err != nil {
 		return err
@@ -203,11 +200,35 @@ func runSweep(args []string, stdout, stderr io.Writer) error {
 		return badInput("--max-amp %g Vpp is above the generator profile's limit of %g Vpp", s.MaxAmpVpp, b.maxVpp)
 	}
 
+	// The guard enforces the amplitude cap and the output rules below the
+	// engine, whatever it does; the safety turns the output off and saves
+	// the session on every exit: return, signal (SIGINT, SIGTERM,
+	// SIGHUP) or panic. Its deferred Done runs before b.Close.
+	guard, err := sweep.NewGuard(b.gen, s.MaxAmpVpp, nil)
+	if err != nil {
+		return badInput("--max-amp: %v", err)
+	}
+	var eng *sweep.Engine
+	sf := newSafety(func() error {
+		if err := guard.Shutdown(); err != nil {
+			b.forceOff(stderr)
+			return err
+		}
+		return nil
+	}, func() error {
+		if eng == nil {
+			return nil
+		}
+		return eng.Save()
+	})
+	defer sf.Done()
+	ctx := sf.Context()
+
 	tui := runTUI != nil && !f.headless && isTerminal(os.Stdout)
 	events := make(chan sweep.Event, 64)
-	eng, err := sweep.New(sweep.Config{
+	eng, err = sweep.New(sweep.Config{
 		Settings:       s,
-		Gen:            b.gen,
+		Gen:            guard,
 		Dig:            b.dig,
 		Out:            f.out,
 		Session:        resumed,
@@ -228,7 +249,7 @@ func runSweep(args []string, stdout, stderr io.Writer) error {
 	if tui {
 		info := TUIInfo{Out: f.out, Settings: eng.Settings(), Instruments: b.info, Sim: f.sim, Scenario: f.scenario, Load: f.load, Resumed: resumed != nil}
 		runErr := make(chan error, 1)
-		go func() { runErr <- eng.Run(ctx) }()
+		sf.Go(func() { runErr <- eng.Run(ctx) })
 		terr := runTUI(eng, events, info)
 		eng.Stop()
 		for range events {
@@ -244,10 +265,10 @@ func runSweep(args []string, stdout, stderr io.Writer) error {
 	}
 	var wg sync.WaitGroup
 	wg.Add(1)
-	go func() {
+	sf.Go(func() {
 		defer wg.Done()
 		progress(events, eng, stderr)
-	}()
+	})
 	rerr := eng.Run(ctx)
 	wg.Wait()
 	if rerr != nil {
@@ -459,10 +480,10 @@ func abs(x float64) float64 {
 	return x
 }
 
-// isTerminal says whether f is a character device (a terminal).
+// isTerminal says whether f is a terminal (not merely a character
+// device such as /dev/null).
 func isTerminal(f *os.File) bool {
-	st, err := f.Stat()
-	return err == nil && st.Mode()&os.ModeCharDevice != 0
+	return isatty.IsTerminal(f.Fd())
 }
 
 // bench is the pair of instruments a sweep drives, and what closes them.
