@@ -146,3 +146,38 @@ func TestSweepResume(t *testing.T) {
 		t.Errorf("first point's attempt changed on resume: %v, was %v", got, first)
 	}
 }
+
+func TestSweepCalibrationFiles(t *testing.T) {
+	// The simulated bench has no "both probes on one node" set-up, so
+	// this checks the plumbing: the calibration file is written from a
+	// ratio sweep, and a later sweep applies it and records its name.
+	dir := t.TempDir()
+	cal := filepath.Join(dir, "cal.json")
+	var stdout, stderr bytes.Buffer
+	base := []string{"sweep", "--sim", "--headless", "--start", "1k", "--stop", "10k", "--ppd", "2", "--refine-budget", "0"}
+	if code := run(append(base, "--out", filepath.Join(dir, "c.json"), "--save-calibration", cal), &stdout, &stderr); code != 0 {
+		t.Fatalf("calibration sweep: exit %d\n%s", code, stderr.String())
+	}
+	raw, err := os.ReadFile(cal)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var c struct {
+		Points []map[string]float64 `json:"points"`
+	}
+	if err := json.Unmarshal(raw, &c); err != nil || len(c.Points) != 3 {
+		t.Fatalf("calibration file: %v, %d points (want 3: 1k, 3.16k, 10k: one decade at 2 per decade)", err, len(c.Points))
+	}
+	out := filepath.Join(dir, "s.json")
+	stderr.Reset()
+	if code := run(append(base, "--out", out, "--calibration", cal), &stdout, &stderr); code != 0 {
+		t.Fatalf("calibrated sweep: exit %d\n%s", code, stderr.String())
+	}
+	raw, _ = os.ReadFile(out)
+	var s struct {
+		Calibration string `json:"calibration"`
+	}
+	if err := json.Unmarshal(raw, &s); err != nil || s.Calibration != cal {
+		t.Errorf("session records calibration %q (%v), want %q", s.Calibration, err, cal)
+	}
+}
