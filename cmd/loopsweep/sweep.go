@@ -11,6 +11,7 @@ import (
 	"strconv"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/mattn/go-isatty"
@@ -208,25 +209,25 @@ func runSweep(args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return badInput("--max-amp: %v", err)
 	}
-	var eng *sweep.Engine
-	sf := newSafety(func() error {
-		if err := guard.Shutdown(); err != nil {
-			b.forceOff(stderr)
-			return err
+	// The save func runs on the safety's signal goroutine, so the engine
+	// reaches it through an atomic pointer, set once it exists.
+	var engPtr atomic.Pointer[sweep.Engine]
+	off := guard.Shutdown
+	if b.genAddr != "" && b.genProf != nil {
+		off = offWithFallback(guard.Shutdown, b.genAddr, b.genProf, 2*time.Second)
+	}
+	sf := newSafety(off, func() error {
+		if e := engPtr.Load(); e != nil {
+			return e.Save()
 		}
 		return nil
-	}, func() error {
-		if eng == nil {
-			return nil
-		}
-		return eng.Save()
 	})
 	defer sf.Done()
 	ctx := sf.Context()
 
 	tui := runTUI != nil && !f.headless && isTerminal(os.Stdout)
 	events := make(chan sweep.Event, 64)
-	eng, err = sweep.New(sweep.Config{
+	eng, err := sweep.New(sweep.Config{
 		Settings:       s,
 		Gen:            guard,
 		Dig:            b.dig,
@@ -246,6 +247,7 @@ func runSweep(args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return settingError(err)
 	}
+	engPtr.Store(eng)
 	if tui {
 		info := TUIInfo{Out: f.out, Settings: eng.Settings(), Instruments: b.info, Sim: f.sim, Scenario: f.scenario, Load: f.load, Resumed: resumed != nil}
 		runErr := make(chan error, 1)
@@ -337,6 +339,10 @@ func countMeasured(s *sweep.Session) int {
 func progress(events <-chan sweep.Event, eng *sweep.Engine, w io.Writer) {
 	start := time.Now()
 	done := 0
+	// Test-only: the safety end-to-end test sets this to make the progress
+	// goroutine panic after N measured points, so the panic exit path
+	// (output off, session kept) is exercised on the real binary.
+	panicAfter, _ := strconv.Atoi(os.Getenv("LOOPSWEEP_TEST_PANIC_AFTER"))
 	for ev := range events {
 		switch ev := ev.(type) {
 		case sweep.PointStarted:
@@ -353,6 +359,9 @@ func progress(events <-chan sweep.Event, eng *sweep.Engine, w io.Writer) {
 			fmt.Fprintf(w, "point %d/%d  %s Hz  attempt %d  ETA %s\n", ev.Index+1, n, fmtSI(ev.FreqHz), ev.Attempt, eta)
 		case sweep.PointMeasured:
 			done++
+			if panicAfter > 0 && done == panicAfter {
+				panic(fmt.Sprintf("test hook: %d points measured", done))
+			}
 		case sweep.PointFlagged:
 			fmt.Fprintf(w, "flagged point %d: %s\n", ev.Index+1, ev.Reason)
 		case sweep.PointAdded:
