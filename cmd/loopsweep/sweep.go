@@ -19,6 +19,7 @@ import (
 	"loopsweep/instr"
 	"loopsweep/sim"
 	"loopsweep/sweep"
+	"loopsweep/tui"
 )
 
 // TUIInfo is what the bench screen needs besides the engine and its
@@ -31,6 +32,8 @@ type TUIInfo struct {
 	Scenario    string // sim scenario and load, when Sim
 	Load        string
 	Resumed     bool
+	// PMTargetDeg and GMTargetDB are the verdict's targets on the screen.
+	PMTargetDeg, GMTargetDB float64
 }
 
 // runTUI, when set (by tui.go), runs the bench screen on the terminal.
@@ -78,6 +81,7 @@ type sweepFlags struct {
 	measure                     string
 	calibration, saveCal        string
 	out, resume, label          string
+	pmTarget, gmTarget          float64
 	headless, jsonOut           bool
 	timeout                     time.Duration
 }
@@ -116,6 +120,8 @@ func runSweep(args []string, stdout, stderr io.Writer) error {
 	fs.StringVar(&f.resume, "resume", "", "continue this interrupted session (plan flags are taken from it)")
 	fs.StringVar(&f.label, "label", "", "operating point label recorded in the session")
 	fs.BoolVar(&f.headless, "headless", false, "no bench screen: progress on stderr, summary on stdout")
+	fs.Float64Var(&f.pmTarget, "pm-target", tui.DefaultPMTargetDeg, "phase margin target for the bench screen's verdict, degrees (common practice: 45°, 60° for critical loads)")
+	fs.Float64Var(&f.gmTarget, "gm-target", tui.DefaultGMTargetDB, "gain margin target for the bench screen's verdict, dB (common practice: 6–10 dB)")
 	fs.BoolVar(&f.jsonOut, "json", false, "print the summary as JSON")
 	fs.DurationVar(&f.timeout, "timeout", 5*time.Second, "instrument reply timeout")
 	if err := parseFlags(fs, args); err != nil {
@@ -249,7 +255,7 @@ func runSweep(args []string, stdout, stderr io.Writer) error {
 	}
 	engPtr.Store(eng)
 	if tui {
-		info := TUIInfo{Out: f.out, Settings: eng.Settings(), Instruments: b.info, Sim: f.sim, Scenario: f.scenario, Load: f.load, Resumed: resumed != nil}
+		info := TUIInfo{Out: f.out, Settings: eng.Settings(), Instruments: b.info, Sim: f.sim, Scenario: f.scenario, Load: f.load, Resumed: resumed != nil, PMTargetDeg: f.pmTarget, GMTargetDB: f.gmTarget}
 		runErr := make(chan error, 1)
 		sf.Go(func() { runErr <- eng.Run(ctx) })
 		terr := runTUI(eng, events, info)

@@ -43,5 +43,7 @@ func runBenchScreen(eng *sweep.Engine, events <-chan sweep.Event, info TUIInfo) 
 		State:       eng.State(),
 		ShowSafety:  !tui.SafetyDismissed(dir),
 		ConfigDir:   dir,
+		PMTargetDeg: info.PMTargetDeg,
+		GMTargetDB:  info.GMTargetDB,
 	})
 }
