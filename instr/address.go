@@ -193,9 +193,12 @@ func tcpAddr(s, host, port string) (Address, error) {
 		}
 	}
 	if strings.Contains(host, ":") {
-		ip, _, _ := strings.Cut(host, "%")
+		ip, zone, hasZone := strings.Cut(host, "%")
 		if net.ParseIP(ip) == nil {
 			return Address{}, badAddr(s, "bad host %q: not an IPv6 address", host)
+		}
+		if hasZone && (zone == "" || strings.Contains(zone, "%")) {
+			return Address{}, badAddr(s, "bad host %q: empty or malformed IPv6 zone", host)
 		}
 	} else if strings.Contains(host, "%") {
 		return Address{}, badAddr(s, "bad host %q: character '%%'", host)
