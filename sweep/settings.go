@@ -30,7 +30,7 @@ const (
 	DefaultMaxAttempts   = 3
 	DefaultRefinePMDeg   = 0.5
 	DefaultRefineGMDB    = 0.2
-	DefaultRefineBudget  = 16
+	DefaultRefineBudget  = 32
 )
 
 // Limits of a plan, so a typing slip cannot ask for a month-long sweep.
