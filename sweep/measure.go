@@ -518,7 +518,7 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 		Re:            real(h),
 		Im:            imag(h),
 		GainDB:        20 * math.Log10(cmplx.Abs(h)),
-		PhaseDeg:      wrapDeg(cmplx.Phase(h) * 180 / math.Pi),
+		PhaseDeg:      analysis.WrapDeg(cmplx.Phase(h) * 180 / math.Pi),
 		GainSigmaDB:   r.GainSigmaDB,
 		PhaseSigmaDeg: r.PhaseSigmaDeg,
 	}
@@ -553,16 +553,6 @@ func sanitize(a *Attempt) {
 	}
 }
 
-// wrapDeg wraps an angle in degrees to (−180, 180].
-func wrapDeg(d float64) float64 {
-	d = math.Mod(d, 360)
-	if d > 180 {
-		d -= 360
-	} else if d <= -180 {
-		d += 360
-	}
-	return d
-}
 
 func reading(t analysis.Tone, ch instr.ChannelSettings) ChannelReading {
 	return ChannelReading{
