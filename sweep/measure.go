@@ -553,7 +553,6 @@ func sanitize(a *Attempt) {
 	}
 }
 
-
 func reading(t analysis.Tone, ch instr.ChannelSettings) ChannelReading {
 	return ChannelReading{
 		AmpPeakV: t.AmpPeak,
