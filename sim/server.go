@@ -295,14 +295,7 @@ func (s *Server) waitAcquisition(a *acquisition) bool {
 	case <-s.quit:
 		return false
 	}
-	t := time.NewTimer(time.Until(a.end))
-	defer t.Stop()
-	select {
-	case <-t.C:
-		return true
-	case <-s.quit:
-		return false
-	}
+	return sleepUntil(a.end, s.quit)
 }
 
 func (s *Server) push(gen bool, e scpiError) {

@@ -218,20 +218,6 @@ func planPoints(fs []float64) []Point {
 	return pts
 }
 
-func realSleep(ctx context.Context, d time.Duration) error {
-	if d <= 0 {
-		return ctx.Err()
-	}
-	t := time.NewTimer(d)
-	defer t.Stop()
-	select {
-	case <-t.C:
-		return nil
-	case <-ctx.Done():
-		return ctx.Err()
-	}
-}
-
 // Settings returns the settings in force.
 func (e *Engine) Settings() Settings {
 	e.mu.Lock()
