@@ -108,6 +108,7 @@ type Engine struct {
 	ampNow     float64
 	chans      [2]instr.ChannelSettings
 	dcKnown    bool
+	ranged     bool // the input windows were set from a reading (autorange)
 	lastWant   instr.CaptureSettings
 	lastGot    instr.CaptureSettings
 	dtCache    map[float64]float64 // asked sample interval → the digitizer's

@@ -453,7 +453,22 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 			c := math.Max(1, math.Round(float64(got.Points)*tone*got.IntervalS))
 			actual := c / (float64(got.Points) * got.IntervalS)
 			if changed {
-				if err := e.sleep(ctx, stepCtx, set.SettleTime(tone)-e.cfg.Now().Sub(t0)); err != nil {
+				settled := t0.Add(set.SettleTime(tone))
+				if !e.ranged && math.Abs(actual-tone) <= 1e-9*tone {
+					ranged, err := e.rangeWhileSettling(ctx, stepCtx, want, got, tone, settled)
+					if err != nil {
+						return Attempt{}, err
+					}
+					if ranged {
+						want.Channels = e.chans
+						if got, err = e.configure(ctx, want, tone); err != nil {
+							return Attempt{}, err
+						}
+						c = math.Max(1, math.Round(float64(got.Points)*tone*got.IntervalS))
+						actual = c / (float64(got.Points) * got.IntervalS)
+					}
+				}
+				if err := e.sleep(ctx, stepCtx, settled.Sub(e.cfg.Now())); err != nil {
 					return Attempt{}, err
 				}
 			}
@@ -590,7 +605,10 @@ func (e *Engine) apply(ctx, stepCtx context.Context, f, amp float64) (bool, erro
 		return true, nil
 	}
 	changed := false
-	if f != e.freqNow {
+	// Within the record planning's own tolerance (measureOnce) the
+	// frequency is already set: a retry's plan that rounds to a tone a
+	// few ulps away needs neither the command nor a settling wait.
+	if math.Abs(f-e.freqNow) > 1e-9*f {
 		if err := e.cfg.Gen.SetFrequency(ctx, f); err != nil {
 			return false, fmt.Errorf("set frequency %g Hz: %w", f, err)
 		}
@@ -912,6 +930,78 @@ func removeBin(x []float64, k int) {
 	}
 }
 
+// Ranging while the loop settles (engineering choices): the first
+// point has no earlier reading to set the input windows from, so short
+// records taken during its settling wait learn the DC level and the
+// windows (the initial range, then finer ones), instead of full records
+// taken again after it.
+const (
+	// rangingCycles per ranging record: enough for the Hann-window fit
+	// of DC, tone and noise that sets a window.
+	rangingCycles = 2.0
+	// rangingCaptures at most: from the initial range a coarse window,
+	// then a fine one, then one more if a channel clipped.
+	rangingCaptures = 3
+	// rangingExchange is allowed per ranging record on top of its own
+	// time, for its Configure, transfer and fit.
+	rangingExchange = 2 * time.Millisecond
+)
+
+// rangeWhileSettling sets the input windows (e.chans, through autorange)
+// from short records of the tone, taken during the settling wait that
+// ends at settled and as late in it as they fit, so the loop is as near
+// its steady state as the wait allows. Only the windows are learned:
+// the attempt's own record is still captured after settled. It takes
+// none when no ranging record fits before settled, and reports whether
+// it took any; a ranging fit that fails ends the ranging (the attempt's
+// own captures then range as before). want and got are the attempt's
+// record as planned and as configured.
+func (e *Engine) rangeWhileSettling(ctx, stepCtx context.Context, want, got instr.CaptureSettings, tone float64, settled time.Time) (bool, error) {
+	n := int(math.Ceil(rangingCycles / (tone * got.IntervalS)))
+	if n >= got.Points {
+		return false, nil
+	}
+	per := time.Duration(float64(n)*got.IntervalS*float64(time.Second)) + rangingExchange
+	ranged := false
+	for k := 0; k < rangingCaptures; k++ {
+		// Room for this record and, after the last, the attempt's Configure.
+		left := settled.Sub(e.cfg.Now())
+		if left < per+rangingExchange {
+			break
+		}
+		if wait := left - time.Duration(rangingCaptures-k)*per - rangingExchange; wait > 0 {
+			if err := e.sleep(ctx, stepCtx, wait); err != nil {
+				return ranged, err
+			}
+		}
+		if e.interrupted() {
+			return ranged, errInterrupted
+		}
+		w := want
+		w.Points, w.Channels = n, e.chans
+		g, err := e.configure(ctx, w, tone)
+		if err != nil {
+			return ranged, err
+		}
+		b1, b2 := e.buf1[:g.Points], e.buf2[:g.Points]
+		if err := e.cfg.Dig.Capture(ctx, b1, b2); err != nil {
+			return ranged, fmt.Errorf("ranging capture of %d points at %g Hz: %w", g.Points, tone, err)
+		}
+		o1, o2 := clipWindow(g.Channels[0]), clipWindow(g.Channels[1])
+		o1.Window, o2.Window = analysis.Hann, analysis.Hann
+		t1, t2, err := analysis.EstimatePair(b1, b2, g.IntervalS, tone, o1, o2)
+		if err != nil {
+			break
+		}
+		ranged = true
+		swings := [2]float64{swing(b1, g.Channels[0].OffsetV), swing(b2, g.Channels[1].OffsetV)}
+		if !e.autorange(t1, t2, swings, g) {
+			break
+		}
+	}
+	return ranged, nil
+}
+
 // configure sends the capture settings unless they equal the last ones
 // and returns what the digitizer chose.
 func (e *Engine) configure(ctx context.Context, want instr.CaptureSettings, f float64) (instr.CaptureSettings, error) {
@@ -992,5 +1082,6 @@ func (e *Engine) autorange(t1, t2 analysis.Tone, swings [2]float64, got instr.Ca
 		e.dcKnown = true
 		again = true
 	}
+	e.ranged = true
 	return again
 }
