@@ -533,10 +533,7 @@ func digInit(s *Server, _ command, _ []int) result {
 	n1, n2 := s.b.noiseOffsets()
 	s.dig.acq = a
 	go func() {
-		a.c1, a.c2 = make([]int16, n), make([]int16, n)
-		snap.record(a.c1, a.c2, t0, dt, a.setup[0], a.setup[1], n1, n2)
-		a.enc[0] = encodeRecord(a.c1, a.setup[0], a.format, a.swapped)
-		a.enc[1] = encodeRecord(a.c2, a.setup[1], a.format, a.swapped)
+		a.c1, a.c2, a.enc = snap.generate(n, t0, dt, a.setup, a.format, a.swapped, n1, n2)
 		close(a.done)
 	}()
 	return result{}

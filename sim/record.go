@@ -1,10 +1,13 @@
 package sim
 
 import (
+	"encoding/binary"
 	"math"
+	"math/bits"
 	"math/cmplx"
 	"math/rand/v2"
 	"runtime"
+	"strconv"
 	"sync"
 )
 
@@ -25,8 +28,9 @@ type bench struct {
 	seg seg   // the generator's sine since its last change
 	tr  trans // the settling transient that change started
 
-	noise []float32 // unit-variance Gaussian samples, a power-of-two table
-	rng   *rand.Rand
+	noise    []float32 // unit-variance Gaussian samples, a power-of-two table
+	noiseMax float64   // the largest |sample| in the table
+	rng      *rand.Rand
 }
 
 // seg is the generator's steady output since time start: v_z(t) =
@@ -58,6 +62,7 @@ func newBench(sc *Scenario, op OperatingPoint, seed int64) *bench {
 	b.noise = make([]float32, 1<<noiseTableBits)
 	for i := range b.noise {
 		b.noise[i] = float32(b.rng.NormFloat64())
+		b.noiseMax = max(b.noiseMax, math.Abs(float64(b.noise[i])))
 	}
 	b.setPoint(sc, op, 0)
 	return b
@@ -174,6 +179,36 @@ type chanSetup struct {
 // lsb is the channel's volts per code.
 func (c chanSetup) lsb() float64 { return c.rangeV / float64(int(1)<<(c.bits-1)) }
 
+// generate makes one acquisition's data from the bench: both channels'
+// codes (record) and each channel's reply in the format and byte order
+// given, as encodeRecord would write it. REAL,32, the format the
+// built-in digitizer profile fetches, is encoded in the same pass as the
+// codes; other formats by encodeRecord afterwards.
+func (b *bench) generate(n int, t0, dt float64, setup [2]chanSetup, format string, swapped bool, n1, n2 int) (c1, c2 []int16, enc [2]result) {
+	c1, c2 = make([]int16, n), make([]int16, n)
+	if format != "REAL,32" {
+		b.record(c1, c2, t0, dt, setup[0], setup[1], n1, n2)
+		return c1, c2, [2]result{encodeRecord(c1, setup[0], format, swapped), encodeRecord(c2, setup[1], format, swapped)}
+	}
+	out1, body1 := blockBuffer(4 * n)
+	out2, body2 := blockBuffer(4 * n)
+	b.recordEncoded(c1, c2, body1, body2, swapped, t0, dt, setup[0], setup[1], n1, n2)
+	return c1, c2, [2]result{{reply: out1, block: true}, {reply: out2, block: true}}
+}
+
+// blockBuffer returns an IEEE 488.2 definite-length block of nb bytes,
+// #<digits><count><body> (IEEE 488.2, memory), and its body to fill. The
+// capacity has one byte more for the reply's newline.
+func blockBuffer(nb int) (out, body []byte) {
+	count := strconv.Itoa(nb)
+	out = make([]byte, 0, 2+len(count)+nb+1)
+	out = append(out, '#', byte('0'+len(count)))
+	out = append(out, count...)
+	h := len(out)
+	out = out[:h+nb]
+	return out, out[h:]
+}
+
 // record fills c1 (node x) and c2 (node y) with ADC codes for samples at
 // t0 + n·dt. volts = code·lsb + offset, codes clipped to the signed
 // range of the channel's bits.
@@ -181,31 +216,110 @@ func (c chanSetup) lsb() float64 { return c.rangeV / float64(int(1)<<(c.bits-1))
 // n1 and n2 are where the channels start reading the noise table (pick
 // them with noiseOffsets). record only reads b, so it may run on a copy
 // taken when the acquisition started.
+func (b *bench) record(c1, c2 []int16, t0, dt float64, s1, s2 chanSetup, n1, n2 int) {
+	b.recordEncoded(c1, c2, nil, nil, false, t0, dt, s1, s2, n1, n2)
+}
+
+// recordEncoded is record that also writes each channel's codes as
+// REAL,32 volts (code·lsb + offset rounded to float32, 4 bytes a sample,
+// big-endian unless swapped) into e1 and e2 when they are not nil, in the
+// same pass while the codes are in cache.
 //
 // Long records are generated in parallel pieces (every block of 1024
 // samples restarts from exact phasors, so the pieces are independent).
-func (b *bench) record(c1, c2 []int16, t0, dt float64, s1, s2 chanSetup, n1, n2 int) {
+func (b *bench) recordEncoded(c1, c2 []int16, e1, e2 []byte, swapped bool, t0, dt float64, s1, s2 chanSetup, n1, n2 int) {
+	var tab [2]*real32Codes
+	if e1 != nil {
+		tab = [2]*real32Codes{real32Table(s1, swapped), real32Table(s2, swapped)}
+		e1, e2 = e1[:4*len(c1)], e2[:4*len(c2)]
+	}
 	const minPiece = 1 << 16
 	workers := min(runtime.GOMAXPROCS(0), len(c1)/minPiece)
 	if workers < 2 {
-		b.recordPiece(c1, c2, 0, t0, dt, s1, s2, n1, n2)
+		b.recordPiece(c1, c2, e1, e2, tab, 0, t0, dt, s1, s2, n1, n2)
 		return
 	}
 	per := (len(c1)/workers + 1023) &^ 1023
 	var wg sync.WaitGroup
 	for lo := 0; lo < len(c1); lo += per {
 		hi := min(lo+per, len(c1))
+		var p1, p2 []byte
+		if e1 != nil {
+			p1, p2 = e1[4*lo:4*hi], e2[4*lo:4*hi]
+		}
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
-			b.recordPiece(c1[lo:hi], c2[lo:hi], lo, t0, dt, s1, s2, n1, n2)
+			b.recordPiece(c1[lo:hi], c2[lo:hi], p1, p2, tab, lo, t0, dt, s1, s2, n1, n2)
 		}()
 	}
 	wg.Wait()
 }
 
-// recordPiece fills samples first.. of the record into c1 and c2.
-func (b *bench) recordPiece(c1, c2 []int16, first int, t0, dt float64, s1, s2 chanSetup, n1, n2 int) {
+// real32Codes maps each ADC code of a channel to the 4 bytes of its
+// REAL,32 volts, float32(code·lsb + offset) as encodeRecord computes
+// them, arranged so that binary.LittleEndian.PutUint32 stores them in
+// the block's byte order. One load per sample replaces a conversion, a
+// multiply-add and a byte swap; indexed by uint16(code), so no bounds
+// check (2^bits of the entries are used: 16 KiB at 12 bits).
+type real32Codes [1 << 16]uint32
+
+func newReal32Codes(cs chanSetup, swapped bool) *real32Codes {
+	lsb, off := cs.lsb(), cs.offsetV
+	t := new(real32Codes)
+	half := int32(1) << (cs.bits - 1)
+	for q := -half; q < half; q++ {
+		w := math.Float32bits(float32(float64(q)*lsb + off))
+		if !swapped {
+			w = bits.ReverseBytes32(w) // NORMal: big-endian
+		}
+		t[uint16(q)] = w
+	}
+	return t
+}
+
+// real32Key says which table a channel needs.
+type real32Key struct {
+	lsb, off float64
+	bits     int
+	swapped  bool
+}
+
+// real32Cache keeps the last few tables: a sweep captures many records
+// at one range and offset, and at 16 bits a table costs as much as
+// generating a short record. Tables are never written once built, so
+// acquisitions share them.
+var real32Cache struct {
+	sync.Mutex
+	keys [4]real32Key
+	tabs [4]*real32Codes
+	next int
+}
+
+// real32Table returns the table for cs, from the cache when it holds it.
+func real32Table(cs chanSetup, swapped bool) *real32Codes {
+	k := real32Key{lsb: cs.lsb(), off: cs.offsetV, bits: cs.bits, swapped: swapped}
+	c := &real32Cache
+	c.Lock()
+	defer c.Unlock()
+	for i, ck := range c.keys {
+		if ck == k && c.tabs[i] != nil {
+			return c.tabs[i]
+		}
+	}
+	t := newReal32Codes(cs, swapped)
+	c.keys[c.next], c.tabs[c.next] = k, t
+	c.next = (c.next + 1) % len(c.keys)
+	return t
+}
+
+// block is the number of samples generated from one set of exact
+// phasors; the noise table's length is a multiple.
+const block = 1024
+
+// recordPiece fills samples first.. of the record into c1 and c2 (and
+// e1, e2 with tab when e1 is not nil).
+func (b *bench) recordPiece(c1, c2 []int16, e1, e2 []byte, tab [2]*real32Codes, first int, t0, dt float64, s1, s2 chanSetup, n1, n2 int) {
 	n1, n2 = n1+first, n2+first
 	t0 += float64(first) * dt
 	sc := b.sc
@@ -232,13 +346,7 @@ func (b *bench) recordPiece(c1, c2 []int16, first int, t0, dt float64, s1, s2 ch
 	ripA := sc.Meas.RippleVpp / 2
 	sigmaN := sc.Meas.NoiseVrms
 	trE := b.tr.e0 * complex(sc.Meas.TransientGain, 0)
-	trDecay := cmplx.Exp(complex(-b.sigma*dt, b.wd*dt))
 
-	const block = 1024 // the noise table's length is a multiple
-	lsb1, lsb2 := s1.lsb(), s2.lsb()
-	inv1, inv2 := 1/lsb1, 1/lsb2
-	hi1, hi2 := float64(int(1)<<(s1.bits-1)-1), float64(int(1)<<(s2.bits-1)-1)
-	lo1, lo2 := -hi1-1, -hi2-1
 	mask := len(b.noise) - 1
 	noise := b.noise
 	amp := sg.ampV
@@ -253,85 +361,208 @@ func (b *bench) recordPiece(c1, c2 []int16, first int, t0, dt float64, s1, s2 ch
 		l := b.loop.eval(complex(0, w))
 		ks = 1 / cmplx.Abs(1+l)
 	}
-	invSat, sq, k3 := 1/sat, ks/(8*sat), ks/(3*sat*sat)
-	base1, base2 := (dcX-s1.offsetV)*inv1, (dcY-s2.offsetV)*inv2
-	sn1, sn2 := float64(sigmaN)*inv1, float64(sigmaN)*inv2
+	nl := nonlin{sat: sat, ks: ks, sq: ks / (8 * sat), k3: ks / (3 * sat * sat)}
+	q1 := newADC(s1, dcX, sigmaN)
+	q2 := newADC(s2, dcY, sigmaN)
 	n1, n2 = n1&^(block-1), n2&^(block-1)
-	var ybuf, vbuf [block]float64
-	// e^(jω·k·dt) and e^(jωr·k·dt) for k in one block, exact
-	var tabT, tabR [block]complex128
-	for k := range min(block, len(c1)) {
-		tabT[k] = cmplx.Exp(complex(0, w*dt*float64(k)))
-		tabR[k] = cmplx.Exp(complex(0, wr*dt*float64(k)))
+	// One block is made in buffers that stay in the first-level cache
+	// and then copied into the record: copy's wide stores write a large
+	// record about twice as fast as one store per sample.
+	var xb, yb [block]float64
+	var o1, o2 [block]int16
+	var b1, b2 [4 * block]byte
+	// e^(jω·k·dt), e^(jωr·k·dt) and e^((−σ+jωd)·k·dt) for k in one
+	// block, each exact
+	tabs := new(phasorTables)
+	pd := complex(-b.sigma*dt, b.wd*dt)
+	for k := range block {
+		tabs.tone[k] = cmplx.Exp(complex(0, w*dt*float64(k)))
+		tabs.ripple[k] = cmplx.Exp(complex(0, wr*dt*float64(k)))
+		tabs.decay[k] = cmplx.Exp(pd * complex(float64(k), 0))
 	}
 	for start := 0; start < len(c1); start += block {
 		end := min(start+block, len(c1))
 		t := t0 + float64(start)*dt
 		// exact phasors at the block start
-		th := sg.phase + w*(t-sg.start)
-		zt := cmplx.Exp(complex(0, th))
+		zt := cmplx.Exp(complex(0, sg.phase+w*(t-sg.start)))
 		zr := cmplx.Exp(complex(0, wr*t))
 		var ze complex128
 		if tau := t - b.tr.at; tau >= 0 && trE != 0 {
 			ze = trE * cmplx.Exp(complex(-b.sigma*tau, b.wd*tau))
 		}
-		// a transient below a nanovolt is over
-		withTr := cmplx.Abs(ze) > 1e-9
+		if cmplx.Abs(ze) <= 1e-9 {
+			ze = 0 // a transient below a nanovolt is over
+		}
+		ph := blockPhasors{y: sg.y * zt, v: complex(amp, 0) * zt, r: complex(ripA, 0) * zr, e: ze}
+		ph.fill(&xb, &yb, tabs, nl)
 		// noise offsets are multiples of the block: no wrap inside one
-		o1, o2 := (n1+start)&mask, (n2+start)&mask
-		out1, out2 := c1[start:end], c2[start:end]
-		nz1 := noise[o1 : o1+len(out1)]
-		nz2 := noise[o2 : o2+len(out1)]
-		out2 = out2[:len(out1)]
-		// pass 1: the output's AC part y and the tone on x. Each sample's
-		// phasor is the block start's times a tabulated rotation, so no
-		// sample waits for the previous one.
-		yb, vb := ybuf[:len(out1)], vbuf[:len(out1)]
-		yz := sg.y * zt
-		yzr, yzi := real(yz), imag(yz)
-		ar, ai := amp*real(zt), amp*imag(zt)
-		rr, ri := ripA*real(zr), ripA*imag(zr)
-		tt, tr := tabT[:len(yb)], tabR[:len(yb)]
-		for k := range yb {
-			c, sn := real(tt[k]), imag(tt[k])
-			u := yzr*c - yzi*sn
-			if withTr {
-				u += real(ze)
-				ze *= trDecay
-			}
-			// softLimit inlined for the common small-signal case: below
-			// |x| = 0.1 the cubic term of tanh suffices (the next, 2x⁵/15,
-			// is under 1.4e-6 relative), deviation scaled by ks
+		k1, k2 := (n1+start)&mask, (n2+start)&mask
+		nz1, nz2 := (*[block]float32)(noise[k1:]), (*[block]float32)(noise[k2:])
+		// a bound on the block's swing: the output's tone and transient
+		// through the cubic, the ripple, and on x the injection
+		clip1, clip2 := true, true
+		if u := cmplx.Abs(ph.y) + cmplx.Abs(ph.e); u/sat < smallSignal {
+			by := u + u*u*(nl.sq+u*nl.k3) + ripA
+			clip1 = q1.mayClip(by+amp, b.noiseMax)
+			clip2 = q2.mayClip(by, b.noiseMax)
+		}
+		if e1 == nil {
+			q1.quantise(&o1, &xb, nz1, clip1)
+			q2.quantise(&o2, &yb, nz2, clip2)
+		} else {
+			q1.quantiseEncode(&o1, &b1, tab[0], &xb, nz1, clip1)
+			q2.quantiseEncode(&o2, &b2, tab[1], &yb, nz2, clip2)
+			copy(e1[4*start:4*end], b1[:])
+			copy(e2[4*start:4*end], b2[:])
+		}
+		copy(c1[start:end], o1[:])
+		copy(c2[start:end], o2[:])
+	}
+}
+
+// phasorTables hold one block's rotations of the tone, the ripple and
+// the transient's decay, e^(p·k·dt) for k = 0..block−1.
+type phasorTables struct {
+	tone, ripple, decay [block]complex128
+}
+
+// nonlin is the output stage's soft limit as recordPiece applies it:
+// y = u + ks·(g(u) − u) (see softLimit); sq = ks/(8·sat) and
+// k3 = ks/(3·sat²) are the cubic approximation's coefficients.
+type nonlin struct{ sat, ks, sq, k3 float64 }
+
+// smallSignal bounds |u|/sat below which the cubic term of tanh suffices
+// (the next, 2x⁵/15, is under 1.4e-6 relative).
+const smallSignal = 0.1
+
+// blockPhasors are one block's complex amplitudes at its first sample:
+// the output's steady tone y, the generator's tone v, the ripple r and
+// the transient e (volts).
+type blockPhasors struct{ y, v, r, e complex128 }
+
+// fill writes the output's AC part into yb and the feedback node's
+// (output plus injection) into xb, sample k being each phasor times its
+// tabulated rotation, so no sample waits for the previous one. Blocks
+// whose swing stays in the small-signal range (bounded by |y| + |e|, as
+// the transient only decays) take a loop without a branch per sample,
+// and without the transient's terms once it is over.
+//
+//go:noinline
+func (ph blockPhasors) fill(xb, yb *[block]float64, tab *phasorTables, nl nonlin) {
+	tt, tr, td := &tab.tone, &tab.ripple, &tab.decay
+	yr, yi := real(ph.y), imag(ph.y)
+	vr, vi := real(ph.v), imag(ph.v)
+	rr, ri := real(ph.r), imag(ph.r)
+	er, ei := real(ph.e), imag(ph.e)
+	sq, k3 := nl.sq, nl.k3
+	small := (cmplx.Abs(ph.y)+cmplx.Abs(ph.e))/nl.sat < smallSignal
+	switch {
+	case small && ph.e == 0:
+		for k := range block {
+			c, s := real(tt[k]), imag(tt[k])
+			u := yr*c - yi*s
+			y := u + u*u*(sq-u*k3) + rr*imag(tr[k]) + ri*real(tr[k])
+			yb[k] = y
+			xb[k] = y + vr*c - vi*s
+		}
+	case small:
+		for k := range block {
+			c, s := real(tt[k]), imag(tt[k])
+			u := yr*c - yi*s + er*real(td[k]) - ei*imag(td[k])
+			y := u + u*u*(sq-u*k3) + rr*imag(tr[k]) + ri*real(tr[k])
+			yb[k] = y
+			xb[k] = y + vr*c - vi*s
+		}
+	default:
+		for k := range block {
+			c, s := real(tt[k]), imag(tt[k])
+			u := yr*c - yi*s + er*real(td[k]) - ei*imag(td[k])
 			var y float64
-			if x := u * invSat; x < 0.1 && x > -0.1 {
+			if x := u / nl.sat; x < smallSignal && x > -smallSignal {
 				y = u + u*u*(sq-u*k3)
 			} else {
-				y = u + ks*(softLimit(u, sat)-u)
+				y = u + nl.ks*(softLimit(u, nl.sat)-u)
 			}
-			rc, rs := real(tr[k]), imag(tr[k])
-			yb[k] = y + rr*rs + ri*rc // ripA·Im(zr·e^(jωr·k·dt))
-			vb[k] = ar*c - ai*sn      // amp·Re(zt·e^(jω·k·dt))
+			y += rr*imag(tr[k]) + ri*real(tr[k]) // ripA·Im(zr·e^(jωr·k·dt))
+			yb[k] = y
+			xb[k] = y + vr*c - vi*s // amp·Re(zt·e^(jω·k·dt))
 		}
-		// pass 2: codes (v − offset)/lsb, rounded half up, clipped
-		nz2 = nz2[:len(yb)]
-		out1, out2 = out1[:len(yb)], out2[:len(yb)]
-		vb = vb[:len(yb)]
-		for k, y := range yb {
-			q1 := base1 + (y+vb[k])*inv1 + float64(nz1[k])*sn1
-			q2 := base2 + y*inv2 + float64(nz2[k])*sn2
-			if q1 > hi1 {
-				q1 = hi1
-			} else if q1 < lo1 {
-				q1 = lo1
-			}
-			if q2 > hi2 {
-				q2 = hi2
-			} else if q2 < lo2 {
-				q2 = lo2
-			}
-			out1[k] = int16(int32(q1+65536.5) - 65536)
-			out2[k] = int16(int32(q2+65536.5) - 65536)
+	}
+}
+
+// adc is one channel's conversion of volts to codes: code = round half
+// up of (v + dc − offset)/lsb + noise·σ/lsb, clipped to [lo, hi].
+type adc struct {
+	base     float64 // (dc − offset)/lsb + 65536.5: rounding by truncation of a positive value
+	inv      float64 // 1/lsb
+	sn       float64 // σ/lsb
+	flo, fhi float64 // lo and hi + 65536
+}
+
+func newADC(cs chanSetup, dcV, noiseV float64) adc {
+	inv := 1 / cs.lsb()
+	hi := float64(int(1)<<(cs.bits-1) - 1)
+	return adc{base: (dcV-cs.offsetV)*inv + 65536.5, inv: inv, sn: noiseV * inv, flo: -hi - 1 + 65536, fhi: hi + 65536}
+}
+
+// mayClip reports whether a block whose AC part stays within ±swing
+// volts, with noise samples within ±nzMax, might reach the window's
+// edges (a code of margin is kept for the bound's own rounding).
+func (a *adc) mayClip(swing, nzMax float64) bool {
+	d := swing*a.inv + nzMax*a.sn + 1
+	return a.base-d < a.flo || a.base+d > a.fhi
+}
+
+// clipTrunc clips q to [lo, hi] before truncating it to an integer, so
+// no value is out of range.
+func clipTrunc(q, lo, hi float64) int32 {
+	if q > hi {
+		q = hi
+	}
+	if q < lo {
+		q = lo
+	}
+	return int32(q)
+}
+
+// quantise writes the codes of v plus noise into out, skipping the clip
+// when the caller has bounded the block's swing within the window (clip
+// false).
+//
+//go:noinline
+func (a *adc) quantise(out *[block]int16, v *[block]float64, nz *[block]float32, clip bool) {
+	base, inv, sn, lo, hi := a.base, a.inv, a.sn, a.flo, a.fhi
+	o, vs, ns := out[:], v[:], nz[:] // one nil check each, not one a sample
+	if !clip {
+		for k := range block {
+			o[k] = int16(int32(base+vs[k]*inv+float64(ns[k])*sn) - 65536)
 		}
+		return
+	}
+	for k := range block {
+		o[k] = int16(clipTrunc(base+vs[k]*inv+float64(ns[k])*sn, lo, hi) - 65536)
+	}
+}
+
+// quantiseEncode is quantise that also writes each code's REAL,32 word
+// from tab into body.
+//
+//go:noinline
+func (a *adc) quantiseEncode(out *[block]int16, body *[4 * block]byte, tab *real32Codes, v *[block]float64, nz *[block]float32, clip bool) {
+	base, inv, sn, lo, hi := a.base, a.inv, a.sn, a.flo, a.fhi
+	o, bs, vs, ns, ws := out[:], body[:], v[:], nz[:], tab[:]
+	if !clip {
+		for k := range block {
+			q := int32(base+vs[k]*inv+float64(ns[k])*sn) - 65536
+			o[k] = int16(q)
+			binary.LittleEndian.PutUint32(bs[4*k:], ws[uint16(q)])
+		}
+		return
+	}
+	for k := range block {
+		q := clipTrunc(base+vs[k]*inv+float64(ns[k])*sn, lo, hi) - 65536
+		o[k] = int16(q)
+		binary.LittleEndian.PutUint32(bs[4*k:], ws[uint16(q)])
 	}
 }
 
@@ -355,18 +586,6 @@ func softLimit(u, sat float64) float64 {
 		g = x * (27 + x2) / (27 + 9*x2)
 	}
 	return sat*g + u*u/(8*sat)
-}
-
-// quantise rounds v (in codes) half up to the nearest integer, clipped
-// to [lo, hi].
-func quantise(v, lo, hi float64) int16 {
-	if v >= hi {
-		return int16(hi)
-	}
-	if v <= lo {
-		return int16(lo)
-	}
-	return int16(int32(v+65536.5) - 65536)
 }
 
 // noiseOffsets picks the two channels' starting points in the noise table.

@@ -1,10 +1,12 @@
 package sim
 
 import (
+	"bytes"
 	"encoding/binary"
 	"fmt"
 	"math"
 	"math/cmplx"
+	"slices"
 	"testing"
 	"time"
 
@@ -202,5 +204,212 @@ func TestNonlinearityAndClipping(t *testing.T) {
 	}
 	if hi == 0 || lo == 0 {
 		t.Errorf("no clipped samples (%d high, %d low)", hi, lo)
+	}
+}
+
+// referenceCodes evaluates the record sample by sample from the bench's
+// closed forms, with none of the generator's machinery (blocks, rotation
+// tables, the cubic small-signal shortcut, bounds that skip the clip):
+// u(t) = steady + transient (cmplx.Exp at every sample), the output
+// stage's soft limit (softLimit, or below |u| = 0.1·sat its third-order
+// form u + u²/(8·sat) − u³/(3·sat²), tanh x ≈ x − x³/3, which the model
+// uses there), the ripple ripA·sin(ωr·t), the injection
+// amp·cos(phase + ω(t − start)), the DC levels, unit noise from the same
+// table offsets, then round half up and clip.
+func referenceCodes(b *bench, n int, t0, dt float64, cs [2]chanSetup, n1, n2 int) (c1, c2 []int16) {
+	sc, sg := b.sc, b.seg
+	off := sg.offV
+	if !sg.on {
+		off = 0
+	}
+	dcY := sc.VoutV() - off*b.t0
+	dcX := dcY + off
+	if cs[0].ac {
+		dcX = 0
+	}
+	if cs[1].ac {
+		dcY = 0
+	}
+	ks := 1.0
+	amp := 0.0
+	if sg.on {
+		amp = sg.ampV
+		ks = 1 / cmplx.Abs(1+b.loop.eval(complex(0, 2*math.Pi*sg.freqHz)))
+	}
+	code := func(v float64, c chanSetup) int16 {
+		hi := float64(int(1)<<(c.bits-1) - 1)
+		q := math.Floor((v-c.offsetV)/c.lsb() + 0.5)
+		return int16(math.Max(-hi-1, math.Min(hi, q)))
+	}
+	mask := len(b.noise) - 1
+	c1, c2 = make([]int16, n), make([]int16, n)
+	for i := range n {
+		t := t0 + float64(i)*dt
+		u := b.steady(sg, t) + b.transient(t)
+		sat := sc.Meas.SaturationV
+		var y float64
+		if x := u / sat; math.Abs(x) < 0.1 {
+			y = u + ks*(u*u/(8*sat)-u*u*u/(3*sat*sat))
+		} else {
+			y = u + ks*(softLimit(u, sat)-u)
+		}
+		y += sc.Meas.RippleVpp / 2 * math.Sin(2*math.Pi*sc.SwitchingHz*t)
+		v := 0.0
+		if sg.on {
+			v = amp * math.Cos(sg.phase+2*math.Pi*sg.freqHz*(t-sg.start))
+		}
+		nz1 := float64(b.noise[(n1&^1023+i)&mask]) * sc.Meas.NoiseVrms
+		nz2 := float64(b.noise[(n2&^1023+i)&mask]) * sc.Meas.NoiseVrms
+		c1[i] = code(dcX+y+v+nz1, cs[0])
+		c2[i] = code(dcY+y+nz2, cs[1])
+	}
+	return c1, c2
+}
+
+// The block generator agrees with the sample-by-sample reference: every
+// code within one step (a sum rounded differently can land on the other
+// side of a half code) and all but a few per ten thousand identical, in
+// the cases the fast paths take and in those they must leave: a
+// transient in progress, a swing outside the small-signal range, a
+// window that clips, a record that is not a whole number of blocks,
+// 8 and 16 bits.
+func TestRecordMatchesReference(t *testing.T) {
+	sc, err := LoadScenario("marginal")
+	if err != nil {
+		t.Fatal(err)
+	}
+	vout := sc.VoutV()
+	cases := []struct {
+		name      string
+		at        float64 // capture start after the last change at 0.01 s
+		f, amp    float64
+		r1, r2    float64
+		bits, n   int
+		alternate bool // channel 2 AC coupled
+	}{
+		{"steady small signal", 0.02, 8000, 0.02, 0.05, 0.05, 12, 20000, false},
+		{"transient in progress", 0.0100005, 8000, 0.02, 0.05, 0.05, 16, 20000, false},
+		{"large swing", 0.02, 8000, 0.8, 2, 2, 12, 5000, false},
+		{"clipping window", 0.02, 2000, 0.04, 0.002, 0.002, 8, 5000, false},
+		{"partial block, AC coupled", 0.02, 15000, 0.02, 0.05, 0.02, 14, 3333, true},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			b := newBench(sc, sc.Points[0], 11)
+			b.setGenerator(0, true, 1000, c.amp, 0)
+			b.setGenerator(0.01, true, c.f, c.amp, 0)
+			cs := [2]chanSetup{
+				{rangeV: c.r1, offsetV: vout, bits: c.bits},
+				{rangeV: c.r2, offsetV: vout, bits: c.bits, ac: c.alternate},
+			}
+			if c.alternate {
+				cs[1].offsetV = 0
+			}
+			const dt = 1e-6
+			want1, want2 := referenceCodes(b, c.n, c.at, dt, cs, 4096, 77777)
+			got1, got2 := make([]int16, c.n), make([]int16, c.n)
+			b.record(got1, got2, c.at, dt, cs[0], cs[1], 4096, 77777)
+			if c.r1 < c.amp {
+				// the case must reach the rails to check the clip
+				hi := int16(int(1)<<(c.bits-1) - 1)
+				if !slices.Contains(got1, hi) || !slices.Contains(got1, -hi-1) {
+					t.Fatalf("no clipped code in a %g V window for a %g V tone", c.r1, c.amp)
+				}
+			}
+			for ch, pair := range [][2][]int16{{got1, want1}, {got2, want2}} {
+				diff := 0
+				for i := range pair[0] {
+					d := int(pair[0][i]) - int(pair[1][i])
+					if d > 1 || d < -1 {
+						t.Fatalf("channel %d sample %d: code %d, reference %d", ch+1, i, pair[0][i], pair[1][i])
+					}
+					if d != 0 {
+						diff++
+					}
+				}
+				t.Logf("channel %d: %d of %d codes differ by one", ch+1, diff, c.n)
+				if diff*10000 > 5*c.n {
+					t.Errorf("channel %d: %d of %d codes differ by one", ch+1, diff, c.n)
+				}
+			}
+		})
+	}
+}
+
+// generate's REAL,32 blocks, encoded in the same pass as the codes, are
+// byte for byte what encodeRecord writes from the codes, in both byte
+// orders; other formats go through encodeRecord itself.
+func TestGenerateEncodesLikeEncodeRecord(t *testing.T) {
+	sc, err := LoadScenario("")
+	if err != nil {
+		t.Fatal(err)
+	}
+	b := newBench(sc, sc.Points[0], 2)
+	b.setGenerator(0, true, 12000, 0.03, 0)
+	cs := [2]chanSetup{{rangeV: 0.05, offsetV: sc.VoutV(), bits: 12}, {rangeV: 0.1, offsetV: sc.VoutV() - 0.01, bits: 12}}
+	for _, format := range []string{"REAL,32", "INT,16", "INT,8", "ASC"} {
+		for _, swapped := range []bool{false, true} {
+			c1, c2, enc := b.generate(200_000+123, 0.02, 1e-7, cs, format, swapped, 0, 1<<19)
+			for i, codes := range [][]int16{c1, c2} {
+				want := encodeRecord(codes, cs[i], format, swapped)
+				if !bytes.Equal(enc[i].reply, want.reply) || enc[i].block != want.block {
+					t.Errorf("%s swapped=%v channel %d: generate's reply differs from encodeRecord's", format, swapped, i+1)
+				}
+			}
+		}
+	}
+}
+
+// With the generator off and no ripple, a channel is the noise alone:
+// its variance is σn² plus the quantisation's lsb²/12 (Widrow's model,
+// memory; the noise spans many codes), within 5 standard errors of a
+// variance estimate, √(2/N) relative (normal samples, memory); the
+// samples are white (lag-1 and lag-7 autocorrelation within 5/√N of 0,
+// the standard error of a sample autocorrelation, memory) and the two
+// channels uncorrelated (same bound).
+func TestRecordNoiseStatistics(t *testing.T) {
+	sc, err := LoadScenario("")
+	if err != nil {
+		t.Fatal(err)
+	}
+	sc2 := *sc
+	sc2.Meas.RippleVpp = 0
+	b := newBench(&sc2, sc2.Points[0], 9)
+	const n = 400_000
+	cs := chanSetup{rangeV: 0.005, offsetV: sc2.VoutV(), bits: 12}
+	c1, c2, _ := b.generate(n, 0.5, 1e-7, [2]chanSetup{cs, cs}, "REAL,32", false, 1<<18, 3<<18)
+	mean := func(x []int16) float64 {
+		var s float64
+		for _, v := range x {
+			s += float64(v)
+		}
+		return s / float64(len(x))
+	}
+	m1, m2 := mean(c1), mean(c2)
+	cov := func(x []int16, mx float64, y []int16, my float64, lag int) float64 {
+		var s float64
+		for i := lag; i < len(x); i++ {
+			s += (float64(x[i]) - mx) * (float64(y[i-lag]) - my)
+		}
+		return s / float64(len(x)-lag)
+	}
+	lsb := cs.lsb()
+	want := (sc2.Meas.NoiseVrms*sc2.Meas.NoiseVrms + lsb*lsb/12) / (lsb * lsb) // codes²
+	for i, c := range []struct {
+		x []int16
+		m float64
+	}{{c1, m1}, {c2, m2}} {
+		v := cov(c.x, c.m, c.x, c.m, 0)
+		if e := math.Abs(v/want - 1); e > 5*math.Sqrt(2.0/n) {
+			t.Errorf("channel %d: variance %.4g codes², want %.4g (relative error %.3g)", i+1, v, want, e)
+		}
+		for _, lag := range []int{1, 7} {
+			if r := cov(c.x, c.m, c.x, c.m, lag) / v; math.Abs(r) > 5/math.Sqrt(n) {
+				t.Errorf("channel %d: lag-%d autocorrelation %.3g", i+1, lag, r)
+			}
+		}
+	}
+	if r := cov(c1, m1, c2, m2, 0) / math.Sqrt(cov(c1, m1, c1, m1, 0)*cov(c2, m2, c2, m2, 0)); math.Abs(r) > 5/math.Sqrt(n) {
+		t.Errorf("channels correlated: %.3g", r)
 	}
 }
