@@ -120,4 +120,8 @@ type Margins struct {
 	// at ModulusFreqHz; Ms = 1/ModulusMargin is the sensitivity peak.
 	ModulusMargin float64
 	ModulusFreqHz float64
+	// ModulusSigma is the standard uncertainty of ModulusMargin, propagated
+	// to first order from the gain and phase uncertainties of the points
+	// the interpolant at ModulusFreqHz is built on.
+	ModulusSigma float64
 }

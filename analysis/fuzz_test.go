@@ -108,8 +108,9 @@ func FuzzComputeMargins(f *testing.F) {
 		if len(m.GainCrossovers) > 0 && m.GainReach != Reached || m.GainReach > NotFound || m.PhaseReach > NotFound {
 			t.Fatalf("reach %d %d", m.GainReach, m.PhaseReach)
 		}
-		if !(m.ModulusMargin >= 0) || math.IsInf(m.ModulusMargin, 0) || !inBand(m.ModulusFreqHz) {
-			t.Fatalf("modulus margin %g at %g Hz", m.ModulusMargin, m.ModulusFreqHz)
+		if !(m.ModulusMargin >= 0) || math.IsInf(m.ModulusMargin, 0) || !inBand(m.ModulusFreqHz) ||
+			!(m.ModulusSigma >= 0) || math.IsInf(m.ModulusSigma, 0) {
+			t.Fatalf("modulus margin %g ± %g at %g Hz", m.ModulusMargin, m.ModulusSigma, m.ModulusFreqHz)
 		}
 	})
 }

@@ -112,7 +112,8 @@ func crossing(p interpolant, us, ys []float64, i int, level float64, atLevelIsAb
 //	PM = 180° + angle(L) at |L| = 1, wrapped to (−180°, 180°]
 //	GM = −20·log10|L| at a phase crossover, dB
 //	delay margin = PM in radians / (2π·f) at the gain crossover, 0 if PM ≤ 0
-//	modulus margin = min |1 + L| over the band (= 1/Ms)
+//	modulus margin = min |1 + L| over the band (= 1/Ms), with its
+//	standard uncertainty ModulusSigma (see modulusMargin)
 //
 // When no crossing of a kind lies in the band, GainReach or PhaseReach
 // says where it is expected: for gain, above the band when |L| > 1
@@ -219,7 +220,7 @@ func ComputeMargins(pts []Point) (Margins, error) {
 	if len(m.PhaseCrossovers) == 0 {
 		m.PhaseReach = phaseReach(ps, sp)
 	}
-	m.ModulusMargin, m.ModulusFreqHz = modulusMargin(us, gs, ps)
+	m.ModulusMargin, m.ModulusFreqHz, m.ModulusSigma = modulusMargin(us, gs, ps, sg, sp)
 	return m, nil
 }
 
@@ -282,11 +283,24 @@ func phaseReach(ps, sp []float64) Reach {
 	return NotFound
 }
 
-// modulusMargin returns min |1 + L| over the band and its frequency: the
-// interpolated gain and phase are scanned at 32 steps per segment and the
-// best step refined by golden-section search over the steps either side
-// (which may lie in the neighbouring segment).
-func modulusMargin(us, gs, ps []float64) (float64, float64) {
+// modulusMargin returns min |1 + L| over the band, its frequency and its
+// standard uncertainty: the interpolated gain and phase are scanned at 32
+// steps per segment and the best step refined by golden-section search
+// over the steps either side (which may lie in the neighbouring segment).
+//
+// Uncertainty, to first order: a change of the curve moves the minimum's
+// location only at second order (the slope of |1+L| in u is zero at an
+// inner minimum, and a minimum at a band edge stays at the edge), so the
+// minimum changes by the change of D = |1+L| at the fixed minimiser u*.
+// With L = R·e^(jφ), R = 10^(g/20), D² = 1 + 2R·cos φ + R²:
+//
+//	∂D/∂g = (R + cos φ)·R / D · ln10/20   (per dB)
+//	∂D/∂φ = −R·sin φ / D · π/180          (per degree)
+//
+// and g(u*), φ(u*) are the interpolants Σ ℓⱼ·yⱼ with variances Σ ℓⱼ²·σⱼ²
+// (neighbours' errors, and gain and phase errors, taken independent, as
+// for PM and GM), hence σ(D)² = (∂D/∂g)²·σg(u*)² + (∂D/∂φ)²·σφ(u*)².
+func modulusMargin(us, gs, ps, sg, sp []float64) (mm, freq, sigma float64) {
 	zero := make([]float64, len(us))
 	n := len(us)
 	dist := func(u float64) float64 {
@@ -327,5 +341,20 @@ func modulusMargin(us, gs, ps []float64) (float64, float64) {
 	if x := 0.5 * (a + b); dist(x) < best {
 		best, bu = dist(x), x
 	}
-	return best, math.Pow(10, bu)
+	i := max(0, min(sort.SearchFloat64s(us, bu)-1, n-2))
+	ip := newInterpolant(us, i)
+	g, _, sgu := ip.eval(bu, gs, sg)
+	p, _, spu := ip.eval(bu, ps, sp)
+	r := RatioFromDB(g)
+	sn, cs := math.Sincos(p * math.Pi / 180)
+	if best > 0 {
+		dg := (r + cs) * r / best * math.Ln10 / 20
+		dp := -r * sn / best * math.Pi / 180
+		sigma = math.Hypot(dg*sgu, dp*spu)
+	} else {
+		// L = −1 exactly: D = |δL| to first order, not Gaussian; report
+		// its rms, R·sqrt((ln10/20·σg)² + (π/180·σφ)²).
+		sigma = r * math.Hypot(math.Ln10/20*sgu, math.Pi/180*spu)
+	}
+	return best, math.Pow(10, bu), sigma
 }

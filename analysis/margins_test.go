@@ -340,6 +340,103 @@ func TestMarginsUncertaintyMatchesScatter(t *testing.T) {
 	}
 }
 
+// Modulus-margin uncertainty: the reported σ of min |1+L| must match the
+// scatter of the modulus margin computed from points perturbed by their
+// own σ (Monte Carlo, 2000 trials: sd known to 1.6%, tolerance 10% to
+// cover the linearisation). The σ differ from point to point and the
+// minimum has |L|·sin φ and R + cos φ both away from zero, so both the
+// gain and the phase terms count; the last case ends the sweep before the
+// peak of |S|, so the minimum sits on the band edge.
+func TestModulusSigmaMatchesScatter(t *testing.T) {
+	third := func(w float64) complex128 { return complex(4, 0) / cmplx.Pow(complex(1, w), 3) }
+	typeOne := func(w float64) complex128 {
+		s := complex(0, w)
+		return 2 / (s * (s + 1) * (s + 2))
+	}
+	cases := []struct {
+		name     string
+		L        func(w float64) complex128
+		fLo, fHi float64
+	}{
+		{"4/(s+1)^3", third, 0.0137, 13.7},
+		{"2/(s(s+1)(s+2))", typeOne, 0.0123, 12.3},
+		{"4/(s+1)^3, band ends before the peak", third, 0.0137, 0.2},
+	}
+	for ci, c := range cases {
+		base := sweepOf(c.L, c.fLo, c.fHi, 10)
+		for i := range base {
+			base[i].GainSigmaDB = 0.02 + 0.06*float64(i%4)/3
+			base[i].PhaseSigmaDeg = 0.2 + 0.8*float64((i+1)%3)/2
+		}
+		m0, err := ComputeMargins(base)
+		if err != nil {
+			t.Fatal(err)
+		}
+		rng := rand.New(rand.NewPCG(21, uint64(ci)))
+		const trials = 2000
+		var sum, sum2 float64
+		pts := make([]Point, len(base))
+		for k := 0; k < trials; k++ {
+			for i, p := range base {
+				p.GainDB += p.GainSigmaDB * rng.NormFloat64()
+				p.PhaseDeg += p.PhaseSigmaDeg * rng.NormFloat64()
+				pts[i] = p
+			}
+			m, err := ComputeMargins(pts)
+			if err != nil {
+				t.Fatalf("%s trial %d: %v", c.name, k, err)
+			}
+			sum, sum2 = sum+m.ModulusMargin, sum2+m.ModulusMargin*m.ModulusMargin
+		}
+		scatter := math.Sqrt((sum2 - sum*sum/trials) / (trials - 1))
+		t.Logf("%s: MM %.4f at %.4g Hz, scatter %.5g, reported %.5g", c.name, m0.ModulusMargin, m0.ModulusFreqHz, scatter, m0.ModulusSigma)
+		if r := scatter / m0.ModulusSigma; !(r > 0.9 && r < 1.1) {
+			t.Errorf("%s: scatter %.5g, reported σ %.5g (ratio %.3f)", c.name, scatter, m0.ModulusSigma, r)
+		}
+	}
+}
+
+// Modulus-margin uncertainty in closed form, on two-point sweeps whose
+// minimum of |1+L| sits on the first point (|L| is the same at both, and
+// the phase moves away from −180°, so |1+L| grows along the segment).
+// With L = R·e^(jφ) at that point, D² = 1 + 2R·cos φ + R² (law of
+// cosines), and R = 10^(g/20) gives dR/dg = R·ln10/20:
+//   - φ = −180°: D = 1 − R, ∂D/∂g = −R·ln10/20, ∂D/∂φ = 0, so
+//     σ = R·(ln10/20)·σg whatever σφ;
+//   - φ = −90°: D = √(1+R²), ∂D/∂g = R²/D·ln10/20, ∂D/∂φ = R/D per radian.
+func TestModulusSigmaClosedForm(t *testing.T) {
+	const sg, sp = 0.1, 2.0 // dB, degrees
+	ln := math.Ln10 / 20
+	rad := math.Pi / 180
+	r := math.Pow(10, -6.0206/20) // ≈ 0.5
+	d := math.Sqrt(1 + r*r)
+	cases := []struct {
+		name           string
+		g, ph0, ph1    float64
+		wantMM, wantSD float64
+	}{
+		{"-6.02 dB at -180°", -6.0206, -180, -150, 1 - r, r * ln * sg},
+		{"-20 dB at -180°", -20, 180, 160, 0.9, 0.1 * ln * sg},
+		{"-6.02 dB at -90°", -6.0206, -90, -60, d, math.Hypot(r*r/d*ln*sg, r/d*rad*sp)},
+	}
+	for _, c := range cases {
+		pts := []Point{
+			{FreqHz: 100, GainDB: c.g, PhaseDeg: c.ph0, GainSigmaDB: sg, PhaseSigmaDeg: sp},
+			{FreqHz: 200, GainDB: c.g, PhaseDeg: c.ph1, GainSigmaDB: sg, PhaseSigmaDeg: sp},
+		}
+		m, err := ComputeMargins(pts)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !near(m.ModulusMargin, c.wantMM, 1e-9) || !near(m.ModulusFreqHz, 100, 1e-6) {
+			t.Errorf("%s: MM %.10f at %g Hz, want %.10f at 100 Hz", c.name, m.ModulusMargin, m.ModulusFreqHz, c.wantMM)
+		}
+		if !near(m.ModulusSigma, c.wantSD, 1e-9*c.wantSD) {
+			t.Errorf("%s: σ(MM) %.10g, closed form %.10g", c.name, m.ModulusSigma, c.wantSD)
+		}
+	}
+}
+
 // Skogestad & Postlethwaite, Multivariable Feedback Control, 2nd ed.,
 // §2.4 (memory): with Ms = max|1/(1+L)|, GM ≥ Ms/(Ms−1) and
 // PM ≥ 2·asin(1/(2·Ms)). Checked on random stable loops K/(s+a)³
