@@ -156,9 +156,7 @@ func accumulate(x1, x2 []float64, n int, r float64, k int, hann bool, o1, o2 flo
 		switch {
 		case hann && y2 != nil:
 			ca, sa := hannPhase(n0, n)
-			q1, q2 := windowPair(d1[:l], d2[:l], y1, y2, o1, o2, t, ca, sa)
-			p1, p2 = blockSums2(d1[:l], d2[:l], 0, 0, t, k)
-			p1.Q, p2.Q = q1, q2
+			p1, p2 = hannSums2(d1[:l], d2[:l], y1, y2, o1, o2, t, ca, sa, k)
 		case hann:
 			ca, sa := hannPhase(n0, n)
 			q1 := windowBlock(d1[:l], y1, o1, t, ca, sa)
@@ -207,6 +205,17 @@ func windowTail(d, y []float64, o float64, hc, hs []float64, ca, sa float64) flo
 		q += d[m] * v
 	}
 	return q
+}
+
+// hannSums2Go windows both channels' blocks y1, y2 into d1, d2
+// (windowBlock) and returns their sums (blockSums of d, Q = Σw·(y−o)²);
+// the pure-Go reference of the Hann kernel.
+func hannSums2Go(d1, d2, y1, y2 []float64, o1, o2 float64, t *tables, ca, sa float64, k int) (a, b sums) {
+	q1 := windowBlock(d1, y1, o1, t, ca, sa)
+	q2 := windowBlock(d2, y2, o2, t, ca, sa)
+	a, b = blockSums(d1, 0, t, k), blockSums(d2, 0, t, k)
+	a.Q, b.Q = q1, q2
+	return a, b
 }
 
 // turn adds a block's sums, referred to the block's first sample n0, to

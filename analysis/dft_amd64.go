@@ -17,7 +17,7 @@ func fund2AVX2(y1, y2, tr, ti *float64, n int, o1, o2 float64, out *[32]float64)
 func harm2AVX2(y1, y2, r2, i2, r3, i3 *float64, n int, o1, o2 float64, out *[32]float64)
 
 //go:noescape
-func window2AVX2(d1, d2, y1, y2, hc, hs *float64, n int, a, b, o1, o2 float64, q *[8]float64)
+func hannFund2AVX2(d1, d2, y1, y2, hc, hs, tr, ti *float64, n int, a, b, o1, o2 float64, out *[32]float64)
 
 // blockSums2 returns both channels' sums over a block, as blockSums does
 // for each.
@@ -28,12 +28,13 @@ func blockSums2(y1, y2 []float64, o1, o2 float64, t *tables, k int) (sums, sums)
 	return blockSums2AVX2(y1, y2, o1, o2, t, k)
 }
 
-// windowPair windows both channels' blocks, as windowBlock does for each.
-func windowPair(d1, d2, y1, y2 []float64, o1, o2 float64, t *tables, ca, sa float64) (float64, float64) {
+// hannSums2 windows both channels' blocks into d1 and d2 and returns
+// their sums, as hannSums2Go does.
+func hannSums2(d1, d2, y1, y2 []float64, o1, o2 float64, t *tables, ca, sa float64, k int) (sums, sums) {
 	if !useAVX2 {
-		return windowBlock(d1, y1, o1, t, ca, sa), windowBlock(d2, y2, o2, t, ca, sa)
+		return hannSums2Go(d1, d2, y1, y2, o1, o2, t, ca, sa, k)
 	}
-	return windowPairAVX2(d1, d2, y1, y2, o1, o2, t, ca, sa)
+	return hannSums2AVX2(d1, d2, y1, y2, o1, o2, t, ca, sa, k)
 }
 
 // lanes adds the four lanes of an accumulator that starts at out[i].
@@ -60,11 +61,19 @@ func blockSums2AVX2(y1, y2 []float64, o1, o2 float64, t *tables, k int) (a, b su
 		s0, q, c = sumFund(y2[m:], o2, tr[m:], ti[m:])
 		b.S0, b.Q, b.C[0] = b.S0+s0, b.Q+q, b.C[0]+c
 	}
-	if k == 1 {
-		return a, b
+	if k > 1 {
+		harmPairAVX2(&a, &b, y1, y2, o1, o2, t)
 	}
+	return a, b
+}
+
+// harmPairAVX2 sets the 2nd and 3rd harmonic sums of a and b.
+func harmPairAVX2(a, b *sums, y1, y2 []float64, o1, o2 float64, t *tables) {
+	n := len(y1)
+	y2 = y2[:n]
+	m := n &^ 3
 	r2, i2, r3, i3 := t.re[1][:n], t.im[1][:n], t.re[2][:n], t.im[2][:n]
-	out = [32]float64{}
+	var out [32]float64
 	if m > 0 {
 		harm2AVX2(&y1[0], &y2[0], &r2[0], &i2[0], &r3[0], &i3[0], m, o1, o2, &out)
 	}
@@ -78,25 +87,35 @@ func blockSums2AVX2(y1, y2 []float64, o1, o2 float64, t *tables, k int) (a, b su
 		c2, c3 = sumHarm(y2[m:], o2, r2[m:], i2[m:], r3[m:], i3[m:])
 		b.C[1], b.C[2] = b.C[1]+c2, b.C[2]+c3
 	}
-	return a, b
 }
 
-// windowPairAVX2 is windowPair with the kernel on the multiple-of-4 part.
-// The kernel computes the weight as 0.5 + (−0.5·ca)·hc + (0.5·sa)·hs,
-// which rounds differently from windowBlock by a few ε.
-func windowPairAVX2(d1, d2, y1, y2 []float64, o1, o2 float64, t *tables, ca, sa float64) (q1, q2 float64) {
+// hannSums2AVX2 is hannSums2 with the fused window-and-fundamental kernel
+// on the multiple-of-4 part (the last 0 to 3 samples in pure Go), then the
+// harmonic kernel on the windowed blocks. The kernel forms the weight as
+// 0.5 + (−0.5·ca)·hc + (0.5·sa)·hs, which rounds differently from
+// windowBlock by a few ε.
+func hannSums2AVX2(d1, d2, y1, y2 []float64, o1, o2 float64, t *tables, ca, sa float64, k int) (a, b sums) {
 	n := len(d1)
 	d2, y1, y2 = d2[:n], y1[:n], y2[:n]
 	hc, hs := t.hcos[:n], t.hsin[:n]
+	tr, ti := t.re[0][:n], t.im[0][:n]
 	m := n &^ 3
-	var q [8]float64
+	var out [32]float64
 	if m > 0 {
-		window2AVX2(&d1[0], &d2[0], &y1[0], &y2[0], &hc[0], &hs[0], m, -0.5*ca, 0.5*sa, o1, o2, &q)
+		hannFund2AVX2(&d1[0], &d2[0], &y1[0], &y2[0], &hc[0], &hs[0], &tr[0], &ti[0], m, -0.5*ca, 0.5*sa, o1, o2, &out)
 	}
-	q1, q2 = lanes(q[:], 0), lanes(q[:], 4)
+	a.S0, a.Q, a.C[0] = lanes(out[:], 0), lanes(out[:], 4), complex(lanes(out[:], 8), lanes(out[:], 12))
+	b.S0, b.Q, b.C[0] = lanes(out[:], 16), lanes(out[:], 20), complex(lanes(out[:], 24), lanes(out[:], 28))
 	if m < n {
-		q1 += windowTail(d1[m:], y1[m:], o1, hc[m:], hs[m:], ca, sa)
-		q2 += windowTail(d2[m:], y2[m:], o2, hc[m:], hs[m:], ca, sa)
+		q := windowTail(d1[m:], y1[m:], o1, hc[m:], hs[m:], ca, sa)
+		s0, _, c := sumFund(d1[m:], 0, tr[m:], ti[m:])
+		a.S0, a.Q, a.C[0] = a.S0+s0, a.Q+q, a.C[0]+c
+		q = windowTail(d2[m:], y2[m:], o2, hc[m:], hs[m:], ca, sa)
+		s0, _, c = sumFund(d2[m:], 0, tr[m:], ti[m:])
+		b.S0, b.Q, b.C[0] = b.S0+s0, b.Q+q, b.C[0]+c
 	}
-	return q1, q2
+	if k > 1 {
+		harmPairAVX2(&a, &b, d1, d2, 0, 0, t)
+	}
+	return a, b
 }

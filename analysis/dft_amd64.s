@@ -157,50 +157,73 @@ harmout:
 	VZEROUPPER
 	RET
 
-// func window2AVX2(d1, d2, y1, y2, hc, hs *float64, n int, a, b, o1, o2 float64, q *[8]float64)
-// d[m] = w[m]·(y[m] − o) with w[m] = 0.5 + a·hc[m] + b·hs[m]; q[0:4] and
-// q[4:8] the lanes of Σ d·(y − o) for the two channels.
-TEXT ·window2AVX2(SB), NOSPLIT, $0-96
+// func hannFund2AVX2(d1, d2, y1, y2, hc, hs, tr, ti *float64, n int, a, b, o1, o2 float64, out *[32]float64)
+// The Hann window and the fundamental's sums in one pass: with
+// w[m] = 0.5 + a·hc[m] + b·hs[m], v = y − o and d = w·v, it stores d in
+// d1, d2 and sums, per channel, out[0:4] Σd, [4:8] Σd·v, [8:12] Σd·tr,
+// [12:16] Σd·ti, and [16:32] the same for channel 2. The table is read
+// as memory operands so that the five constants stay in registers.
+TEXT ·hannFund2AVX2(SB), NOSPLIT, $0-112
 	MOVQ         d1+0(FP), R12
 	MOVQ         d2+8(FP), R13
 	MOVQ         y1+16(FP), SI
 	MOVQ         y2+24(FP), DI
 	MOVQ         hc+32(FP), R8
 	MOVQ         hs+40(FP), R9
-	MOVQ         n+48(FP), CX
-	VBROADCASTSD a+56(FP), Y10
-	VBROADCASTSD b+64(FP), Y11
-	VBROADCASTSD o1+72(FP), Y14
-	VBROADCASTSD o2+80(FP), Y15
-	MOVQ         q+88(FP), DX
+	MOVQ         tr+48(FP), R10
+	MOVQ         ti+56(FP), R11
+	MOVQ         n+64(FP), CX
+	VBROADCASTSD a+72(FP), Y12
+	VBROADCASTSD b+80(FP), Y13
+	VBROADCASTSD o1+88(FP), Y14
+	VBROADCASTSD o2+96(FP), Y15
+	MOVQ         out+104(FP), DX
 	MOVQ         $0x3fe0000000000000, AX // 0.5
-	MOVQ         AX, X12
-	VBROADCASTSD X12, Y12
+	MOVQ         AX, X11
+	VBROADCASTSD X11, Y11
 	VXORPD       Y0, Y0, Y0
 	VXORPD       Y1, Y1, Y1
+	VXORPD       Y2, Y2, Y2
+	VXORPD       Y3, Y3, Y3
+	VXORPD       Y4, Y4, Y4
+	VXORPD       Y5, Y5, Y5
+	VXORPD       Y6, Y6, Y6
+	VXORPD       Y7, Y7, Y7
 	XORQ         AX, AX
 
-win4:
+hann4:
 	CMPQ        AX, CX
-	JGE         winout
-	VMOVAPD     Y12, Y2
-	VFMADD231PD (R9)(AX*8), Y11, Y2
-	VFMADD231PD (R8)(AX*8), Y10, Y2
-	VMOVUPD     (SI)(AX*8), Y3
-	VSUBPD      Y14, Y3, Y3
-	VMOVUPD     (DI)(AX*8), Y4
-	VSUBPD      Y15, Y4, Y4
-	VMULPD      Y2, Y3, Y5
-	VMULPD      Y2, Y4, Y6
-	VMOVUPD     Y5, (R12)(AX*8)
-	VMOVUPD     Y6, (R13)(AX*8)
-	VFMADD231PD Y5, Y3, Y0
-	VFMADD231PD Y6, Y4, Y1
+	JGE         hannout
+	VMOVAPD     Y11, Y8
+	VFMADD231PD (R9)(AX*8), Y13, Y8
+	VFMADD231PD (R8)(AX*8), Y12, Y8
+	VMOVUPD     (SI)(AX*8), Y9
+	VSUBPD      Y14, Y9, Y9
+	VMULPD      Y8, Y9, Y10
+	VMOVUPD     Y10, (R12)(AX*8)
+	VADDPD      Y10, Y0, Y0
+	VFMADD231PD Y10, Y9, Y1
+	VFMADD231PD (R10)(AX*8), Y10, Y2
+	VFMADD231PD (R11)(AX*8), Y10, Y3
+	VMOVUPD     (DI)(AX*8), Y9
+	VSUBPD      Y15, Y9, Y9
+	VMULPD      Y8, Y9, Y10
+	VMOVUPD     Y10, (R13)(AX*8)
+	VADDPD      Y10, Y4, Y4
+	VFMADD231PD Y10, Y9, Y5
+	VFMADD231PD (R10)(AX*8), Y10, Y6
+	VFMADD231PD (R11)(AX*8), Y10, Y7
 	ADDQ        $4, AX
-	JMP         win4
+	JMP         hann4
 
-winout:
+hannout:
 	VMOVUPD    Y0, 0(DX)
 	VMOVUPD    Y1, 32(DX)
+	VMOVUPD    Y2, 64(DX)
+	VMOVUPD    Y3, 96(DX)
+	VMOVUPD    Y4, 128(DX)
+	VMOVUPD    Y5, 160(DX)
+	VMOVUPD    Y6, 192(DX)
+	VMOVUPD    Y7, 224(DX)
 	VZEROUPPER
 	RET

@@ -73,17 +73,19 @@ func TestKernelsMatchPureGo(t *testing.T) {
 	}
 }
 
-// The Hann windowing kernel against windowBlock: every windowed sample
-// within 4ε of |y−o| (the weight is formed in a different order, each
-// step rounding once) and Σw·(y−o)² within the summation bound.
-func TestWindowKernelMatchesPureGo(t *testing.T) {
+// The Hann kernels (window and fundamental fused, then the harmonics on
+// the windowed block) against hannSums2Go (windowBlock, then blockSums):
+// every windowed sample within 4ε of |y−o| (the weight is formed in a
+// different order, each step rounding once) and every sum within the
+// summation bound widened by those 4ε a term.
+func TestHannKernelsMatchPureGo(t *testing.T) {
 	if !useAVX2 {
 		t.Skip("CPU lacks AVX2 or FMA: only the pure-Go loops run here")
 	}
 	rng := rand.New(rand.NewPCG(3, 5))
 	for trial := 0; trial < 10; trial++ {
 		hn := 600 + rng.IntN(5000)
-		tb := newTables(blockLen, 0.01, 1, hn)
+		tb := newTables(blockLen, rng.Float64()*0.16, 3, hn)
 		ca, sa := hannPhase(rng.IntN(hn), hn)
 		for _, n := range kernelLens {
 			y1, y2 := make([]float64, n), make([]float64, n)
@@ -92,25 +94,38 @@ func TestWindowKernelMatchesPureGo(t *testing.T) {
 				y2[i] = rng.NormFloat64()
 			}
 			o1, o2 := 0.7, 0.1
-			g1, g2 := make([]float64, n), make([]float64, n)
-			w1, w2 := make([]float64, n), make([]float64, n)
-			q1, q2 := windowPairAVX2(g1, g2, y1, y2, o1, o2, tb, ca, sa)
-			r1 := windowBlock(w1, y1, o1, tb, ca, sa)
-			r2 := windowBlock(w2, y2, o2, tb, ca, sa)
-			for ch, c := range []struct {
-				y, got, want []float64
-				o, qg, qw    float64
-			}{{y1, g1, w1, o1, q1, r1}, {y2, g2, w2, o2, q2, r2}} {
-				abs := 0.0
-				for i, v := range c.y {
-					u := math.Abs(v - c.o)
-					abs += u * u
-					if math.Abs(c.got[i]-c.want[i]) > 4*0x1p-52*u {
-						t.Fatalf("n=%d channel %d sample %d: kernel %g, pure Go %g", n, ch+1, i, c.got[i], c.want[i])
+			for _, k := range []int{1, 3} {
+				g1, g2 := make([]float64, n), make([]float64, n)
+				w1, w2 := make([]float64, n), make([]float64, n)
+				s1, s2 := hannSums2AVX2(g1, g2, y1, y2, o1, o2, tb, ca, sa, k)
+				r1, r2 := hannSums2Go(w1, w2, y1, y2, o1, o2, tb, ca, sa, k)
+				for ch, c := range []struct {
+					y, got, want []float64
+					o            float64
+					sg, sw       sums
+				}{{y1, g1, w1, o1, s1, r1}, {y2, g2, w2, o2, s2, r2}} {
+					var a0, aq float64
+					var ac [3]float64
+					for i, v := range c.y {
+						u := math.Abs(v - c.o)
+						if math.Abs(c.got[i]-c.want[i]) > 4*0x1p-52*u {
+							t.Fatalf("n=%d channel %d sample %d: kernel %g, pure Go %g", n, ch+1, i, c.got[i], c.want[i])
+						}
+						a0 += u
+						aq += u * u
+						for h := 0; h < k; h++ {
+							ac[h] += u * (math.Abs(tb.re[h][i]) + math.Abs(tb.im[h][i]))
+						}
 					}
-				}
-				if !withinSum(c.qg, c.qw, n, abs) {
-					t.Fatalf("n=%d channel %d: Σw·u² kernel %g, pure Go %g", n, ch+1, c.qg, c.qw)
+					within := func(got, want, abs float64) bool { return withinSum(got, want, n+2, abs) }
+					ok := within(c.sg.S0, c.sw.S0, a0) && within(c.sg.Q, c.sw.Q, aq)
+					for h := 0; h < k; h++ {
+						ok = ok && within(real(c.sg.C[h]), real(c.sw.C[h]), ac[h]) &&
+							within(imag(c.sg.C[h]), imag(c.sw.C[h]), ac[h])
+					}
+					if !ok {
+						t.Fatalf("n=%d k=%d channel %d: kernel %+v, pure Go %+v", n, k, ch+1, c.sg, c.sw)
+					}
 				}
 			}
 		}

@@ -12,7 +12,8 @@ func blockSums2(y1, y2 []float64, o1, o2 float64, t *tables, k int) (sums, sums)
 	return blockSums(y1, o1, t, k), blockSums(y2, o2, t, k)
 }
 
-// windowPair windows both channels' blocks, as windowBlock does for each.
-func windowPair(d1, d2, y1, y2 []float64, o1, o2 float64, t *tables, ca, sa float64) (float64, float64) {
-	return windowBlock(d1, y1, o1, t, ca, sa), windowBlock(d2, y2, o2, t, ca, sa)
+// hannSums2 windows both channels' blocks into d1 and d2 and returns
+// their sums, as hannSums2Go does.
+func hannSums2(d1, d2, y1, y2 []float64, o1, o2 float64, t *tables, ca, sa float64, k int) (sums, sums) {
+	return hannSums2Go(d1, d2, y1, y2, o1, o2, t, ca, sa, k)
 }
