@@ -6,8 +6,11 @@ package sweep
 
 import (
 	"context"
+	"fmt"
 	"math"
 	"math/cmplx"
+	"path/filepath"
+	"sort"
 	"testing"
 	"time"
 
@@ -76,14 +79,29 @@ func (r *simRig) config(s Settings) Config {
 }
 
 // physicalAll is the settling plus capture time of every attempt taken
-// (retries included): what the measurement itself asked for.
+// (retries included): what the measurement itself asked for. An attempt
+// settles only when it changed the tone or the amplitude from the attempt
+// before it in time: a retry at the same settings waits for nothing (the
+// engine then sends nothing), so counting a settling wait for it would
+// flatter the ratio.
 func physicalAll(s Session) time.Duration {
-	var d time.Duration
+	type taken struct {
+		a    Attempt
+		tone float64
+	}
+	var all []taken
 	for _, p := range s.Points {
 		for _, a := range p.Attempts {
-			d += s.Settings.SettleTime(a.Tone(p.FreqHz))
-			d += time.Duration(float64(a.RecordLength) * a.IntervalS * float64(time.Second))
+			all = append(all, taken{a, a.Tone(p.FreqHz)})
 		}
+	}
+	sort.Slice(all, func(i, j int) bool { return all[i].a.Started.Before(all[j].a.Started) })
+	var d time.Duration
+	for i, t := range all {
+		if i == 0 || math.Abs(t.tone-all[i-1].tone) > 1e-9*t.tone || t.a.AmpVpp != all[i-1].a.AmpVpp {
+			d += s.Settings.SettleTime(t.tone)
+		}
+		d += time.Duration(float64(t.a.RecordLength) * t.a.IntervalS * float64(time.Second))
 	}
 	return d
 }
@@ -108,14 +126,19 @@ func physicalMinimum(s Session) time.Duration {
 // simulator and reports wall time over the physical minimum measured in
 // the same run (target: at most 1.10): wall/physical counts one attempt
 // per point, wall/physical-all-attempts every attempt the judge asked for.
+// The session is saved after every point to a file in a temporary
+// directory, as a real sweep saves it.
 func BenchmarkSweepOverhead(b *testing.B) {
 	r := startSim(b, "", "")
 	s := Defaults()
 	s.StartHz, s.StopHz = 200, 20e3
 	s.RefineBudget = 0
+	dir := b.TempDir()
 	var wall, phys, all time.Duration
 	for i := 0; i < b.N; i++ {
-		e, err := New(r.config(s))
+		cfg := r.config(s)
+		cfg.Out = filepath.Join(dir, fmt.Sprintf("session-%d.json", i))
+		e, err := New(cfg)
 		if err != nil {
 			b.Fatal(err)
 		}

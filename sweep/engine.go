@@ -108,7 +108,9 @@ type Engine struct {
 	ampNow     float64
 	chans      [2]instr.ChannelSettings
 	dcKnown    bool
-	ranged     bool // the input windows were set from a reading (autorange)
+	ranged     bool       // the input windows were set from a reading (autorange)
+	unsaved    bool       // the last point is not on disk yet: the next job saves it (runJob)
+	saveDone   chan error // that save, running while the next point settles
 	lastWant   instr.CaptureSettings
 	lastGot    instr.CaptureSettings
 	dtCache    map[float64]float64 // asked sample interval → the digitizer's

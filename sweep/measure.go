@@ -214,8 +214,17 @@ func (e *Engine) refineJobLocked() (job, bool) {
 
 // runJob measures one point: up to the allowed attempts, each with more
 // cycles than the last, until one passes the judge; a point that stays
-// bad is flagged. It saves the session and publishes the new margins.
-func (e *Engine) runJob(ctx context.Context, j job) error {
+// bad is flagged. It publishes the new margins and leaves the session to
+// be saved by the next job, while that job's point settles (or by Run
+// when no job follows: every way out of Run saves). Either way the
+// point is on disk before the next capture begins, and before the next
+// PointStarted is published.
+func (e *Engine) runJob(ctx context.Context, j job) (err error) {
+	defer func() {
+		if serr := e.joinSave(); serr != nil && err == nil {
+			err = fmt.Errorf("save session: %w", serr)
+		}
+	}()
 	e.mu.Lock()
 	set := e.set
 	if j.override != nil {
@@ -278,7 +287,11 @@ func (e *Engine) runJob(ctx context.Context, j job) error {
 		idx = e.findLocked(j.freq)
 		n := len(e.sess.Points[idx].Attempts)
 		e.mu.Unlock()
-		e.emit(PointStarted{Index: idx, FreqHz: j.freq, Attempt: n + 1})
+		if ev := (PointStarted{Index: idx, FreqHz: j.freq, Attempt: n + 1}); e.unsaved {
+			e.saveThenAnnounce(ev)
+		} else {
+			e.emit(ev)
+		}
 		a, err := e.measureOnce(ctx, stepCtx, set, j.freq, amp, cycles)
 		if err != nil {
 			return err
@@ -347,9 +360,7 @@ func (e *Engine) runJob(ctx context.Context, j job) error {
 	if err := e.drainErrors(ctx, fmt.Sprintf("the point at %g Hz", j.freq)); err != nil {
 		return err
 	}
-	if err := e.Save(); err != nil {
-		return fmt.Errorf("save session: %w", err)
-	}
+	e.unsaved = true
 	if set.Measure == MeasureLoop {
 		e.mu.Lock()
 		m, err := e.sess.Margins()
@@ -359,6 +370,34 @@ func (e *Engine) runJob(ctx context.Context, j job) error {
 		}
 	}
 	return nil
+}
+
+// saveThenAnnounce saves the session in the background, while the point
+// that ev starts is set up and settles, and publishes ev once the save
+// has succeeded, so a PointStarted still means every earlier point is on
+// disk. joinSave waits for it: every capture does so first.
+func (e *Engine) saveThenAnnounce(ev PointStarted) {
+	e.unsaved = false
+	done := make(chan error, 1)
+	e.saveDone = done
+	go func() {
+		err := e.Save()
+		if err == nil {
+			e.emit(ev)
+		}
+		done <- err
+	}()
+}
+
+// joinSave waits for the background save, if one is running, and
+// returns its error.
+func (e *Engine) joinSave() error {
+	if e.saveDone == nil {
+		return nil
+	}
+	err := <-e.saveDone
+	e.saveDone = nil
+	return err
 }
 
 // disagree says whether two attempts at one frequency differ by more than
@@ -480,14 +519,16 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 		if e.interrupted() {
 			return Attempt{}, errInterrupted
 		}
+		if err := e.joinSave(); err != nil {
+			return Attempt{}, fmt.Errorf("save session: %w", err)
+		}
 		if err := e.cfg.Dig.Capture(ctx, e.buf1[:got.Points], e.buf2[:got.Points]); err != nil {
 			return Attempt{}, fmt.Errorf("capture %d points at %g Hz: %w", got.Points, tone, err)
 		}
 		o1, o2 := clipWindow(got.Channels[0]), clipWindow(got.Channels[1])
 		// The raw swing about the window's centre (ripple, noise, tone and
 		// all): the window must hold it whatever the fit later removes.
-		peak1 := swing(e.buf1[:got.Points], got.Channels[0].OffsetV)
-		peak2 := swing(e.buf2[:got.Points], got.Channels[1].OffsetV)
+		ext := [2]extent{extentOf(e.buf1[:got.Points]), extentOf(e.buf2[:got.Points])}
 		var clip1, clip2 bool
 		if rippleBin > 0 && got.Points == want.Points {
 			// Clipping is judged on the raw samples, before the ripple goes.
@@ -503,7 +544,7 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 		}
 		t1.Clipped = t1.Clipped || clip1
 		t2.Clipped = t2.Clipped || clip2
-		again := e.autorange(t1, t2, [2]float64{peak1, peak2}, got)
+		again := e.autorange(t1, t2, ext, got)
 		if !again || try+1 >= maxCaptureTries {
 			break
 		}
@@ -883,13 +924,21 @@ func clipWindow(ch instr.ChannelSettings) analysis.ToneOptions {
 	}
 }
 
-// swing is the largest |x − centre| of a record, volts.
-func swing(x []float64, centre float64) float64 {
-	m := 0.0
+// extent is the lowest and highest sample of a raw record, volts.
+type extent struct{ lo, hi float64 }
+
+func extentOf(x []float64) extent {
+	e := extent{math.Inf(1), math.Inf(-1)}
 	for _, v := range x {
-		m = math.Max(m, math.Abs(v-centre))
+		e.lo, e.hi = math.Min(e.lo, v), math.Max(e.hi, v)
 	}
-	return m
+	return e
+}
+
+// about is the record's largest excursion from centre, volts: the
+// half-window a window centred there needs to hold every sample.
+func (e extent) about(centre float64) float64 {
+	return math.Max(e.hi-centre, centre-e.lo)
 }
 
 // clipped says whether a sample is at or beyond the window's limits.
@@ -983,6 +1032,9 @@ func (e *Engine) rangeWhileSettling(ctx, stepCtx context.Context, want, got inst
 		if err != nil {
 			return ranged, err
 		}
+		if err := e.joinSave(); err != nil {
+			return ranged, fmt.Errorf("save session: %w", err)
+		}
 		b1, b2 := e.buf1[:g.Points], e.buf2[:g.Points]
 		if err := e.cfg.Dig.Capture(ctx, b1, b2); err != nil {
 			return ranged, fmt.Errorf("ranging capture of %d points at %g Hz: %w", g.Points, tone, err)
@@ -994,8 +1046,7 @@ func (e *Engine) rangeWhileSettling(ctx, stepCtx context.Context, want, got inst
 			break
 		}
 		ranged = true
-		swings := [2]float64{swing(b1, g.Channels[0].OffsetV), swing(b2, g.Channels[1].OffsetV)}
-		if !e.autorange(t1, t2, swings, g) {
+		if !e.autorange(t1, t2, [2]extent{extentOf(b1), extentOf(b2)}, g) {
 			break
 		}
 	}
@@ -1040,23 +1091,28 @@ func wholeCyclePoints(cycles int, r float64, maxP int) (int, float64) {
 // autorange sets each channel's window for the next capture from this
 // reading and says whether this one must be taken again: the DC level was
 // just learned, a channel clipped (and a larger range remains), or a
-// window was far too large for the tone.
-func (e *Engine) autorange(t1, t2 analysis.Tone, swings [2]float64, got instr.CaptureSettings) bool {
+// window was far too large for the tone. ext is each channel's raw
+// record (ripple, noise and tone, before any ripple removal).
+func (e *Engine) autorange(t1, t2 analysis.Tone, ext [2]extent, got instr.CaptureSettings) bool {
 	again := false
 	for c, t := range [2]analysis.Tone{t1, t2} {
 		ch := got.Channels[c]
 		want := math.Max(rangeHeadroom*t.AmpPeak+6*t.NoiseRMS, e.cfg.MinRangeV)
-		// Everything else on the probe (ripple, noise peaks) must fit too.
-		want = math.Max(want, swingHeadroom*(swings[c]-math.Abs(t.DC-ch.OffsetV)))
 		off := ch.OffsetV
 		if e.cfg.FixedOffset && !ch.AC && !e.cfg.ACCoupling {
 			// The window cannot move: it must hold the DC level too.
 			want = math.Max(want, math.Abs(t.DC-off)+rangeHeadroom*t.AmpPeak+6*t.NoiseRMS)
 		} else if !ch.AC && !e.cfg.ACCoupling {
-			if !e.dcKnown || math.Abs(t.DC-off) > want/4 {
+			if !e.dcKnown || math.Abs(t.DC-off) > math.Max(want, swingHeadroom*ext[c].about(t.DC))/4 {
 				off = t.DC
 			}
 		}
+		// Everything else on the probe (ripple, noise peaks) must fit too,
+		// about the centre the window will have. The fitted DC is not
+		// that centre: with AC coupling or a fixed offset the window stays
+		// where it is, and a ripple aliased near 0 Hz moves the fitted DC
+		// without moving the samples.
+		want = math.Max(want, swingHeadroom*ext[c].about(off))
 		r := ch.RangeV
 		switch {
 		case t.Clipped:
