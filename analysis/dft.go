@@ -9,10 +9,11 @@ import (
 // Inside a block the sums Σ d[m]·e^(−j·k·θ·m) use a table of
 // e^(−j·k·θ·m) shared by both channels and every block; the block's sum is
 // then turned by e^(−j·k·θ·n0), n0 the block's first sample, computed
-// directly from the phase reduced to [0, 1) cycle. No phasor is carried
-// from one block to the next, so rounding does not grow with the record
-// (a rotating phasor drifts by about n·ε after n steps); every table entry
-// is within a few ε of exact, being re-seeded from math.Sincos every
+// directly from the phase reduced exactly to [0, 1) cycle (turnOf). No
+// phasor is carried from one block to the next, so rounding does not grow
+// with the record (a rotating phasor drifts by about n·ε after n steps);
+// every table entry of harmonic k is within 2·k·reseedEvery·ε of exact
+// (TestTablesAccurate), being re-seeded from math.Sincos every
 // reseedEvery entries. The inner loops have no recurrence through the
 // phasor, only independent sums, which keeps them close to the speed of
 // a pass that only adds the samples. Memory is read once, block by block.
@@ -55,6 +56,18 @@ func expNeg(cyc float64) complex128 {
 	return complex(c, -s)
 }
 
+// turnOf returns e^(−j·2π·q·r) for an integer q ≥ 0 and r ≥ 0. The
+// product q·r is split exactly into hi + lo (math.FMA gives the rounding
+// error of hi), so the fraction of a cycle is right to about ε even when
+// q·r is many cycles: rounding q·r alone would cost ε·q·r cycles, 1e-10
+// rad at the end of a record of 1e6 samples.
+func turnOf(q int, r float64) complex128 {
+	fq := float64(q)
+	hi := fq * r
+	lo := math.FMA(fq, r, -hi)
+	return expNeg((hi - math.Floor(hi)) + lo)
+}
+
 // tables holds e^(−j·k·θ·m), k = 1..3, m < blockLen, as separate real and
 // imaginary slices, and the Hann window's cos/sin(2π·m/N) and the two
 // channels' windowed blocks d when needed. All of them are cut from buf,
@@ -93,24 +106,42 @@ func newTables(b int, r float64, k int, hannN int) *tables {
 		t.re[h] = cut()
 		t.im[h] = cut()
 	}
+	// fill stores e^(−j·2π·cyc·m): a seed from expNeg every reseedEvery
+	// entries, turned by e^(−j·2π·cyc·j), j < reseedEvery, from a short
+	// recurrence; the entries do not depend on one another, so the loop
+	// has no chain through a rotating phasor.
 	fill := func(re, im []float64, cyc float64) {
-		var w, step complex128
-		step = expNeg(cyc)
-		for m := range re {
-			if m%reseedEvery == 0 {
-				w = expNeg(float64(m) * cyc)
-			} else {
-				w *= step
+		var pr, pi [reseedEvery]float64
+		step := expNeg(cyc)
+		w := complex(1, 0)
+		for j := range pr {
+			pr[j], pi[j] = real(w), imag(w)
+			w *= step
+		}
+		for m0 := 0; m0 < len(re); m0 += reseedEvery {
+			s := turnOf(m0, cyc)
+			sr, si := real(s), imag(s)
+			end := min(m0+reseedEvery, len(re))
+			cr, ci := re[m0:end], im[m0:end]
+			ci = ci[:len(cr)]
+			for j := range cr {
+				// (sr + j·si)·(pr + j·pi)
+				cr[j] = sr*pr[j] - si*pi[j]
+				ci[j] = sr*pi[j] + si*pr[j]
 			}
-			re[m], im[m] = real(w), imag(w)
 		}
 	}
 	fill(t.re[0], t.im[0], r)
+	r1, i1 := t.re[0], t.im[0]
 	for h := 1; h < k; h++ {
-		for m := 0; m < b; m++ {
-			// e^(−j(h+1)θm) = e^(−jhθm)·e^(−jθm)
-			w := complex(t.re[h-1][m], t.im[h-1][m]) * complex(t.re[0][m], t.im[0][m])
-			t.re[h][m], t.im[h][m] = real(w), imag(w)
+		// e^(−j(h+1)θm) = e^(−jhθm)·e^(−jθm)
+		hr, hi := t.re[h], t.im[h]
+		pr, pi := t.re[h-1][:len(hr)], t.im[h-1][:len(hr)]
+		hi, r1, i1 := hi[:len(hr)], r1[:len(hr)], i1[:len(hr)]
+		for m := range hr {
+			a, c := pr[m], pi[m]
+			hr[m] = a*r1[m] - c*i1[m]
+			hi[m] = a*i1[m] + c*r1[m]
 		}
 	}
 	if hannN > 0 {
@@ -169,7 +200,7 @@ func accumulate(x1, x2 []float64, n int, r float64, k int, hann bool, o1, o2 flo
 		}
 		var rot [3]complex128
 		for h := 0; h < k; h++ {
-			rot[h] = expNeg(float64(n0) * float64(h+1) * r)
+			rot[h] = turnOf(n0*(h+1), r)
 		}
 		turn(&a1, &p1, &rot, k)
 		if !one {
