@@ -348,3 +348,18 @@ func settlingPole(r rational) (sigma, wd float64) {
 	}
 	return 2 * math.Pi * 100, 0
 }
+
+// SettlingPole returns the closed loop's settling pole at the operating
+// point named load ("" the first): its decay rate σ (1/s) and damped
+// angular frequency ωd (rad/s, 0 for a real pole). It is the slowest
+// closed-loop pole that is not part of a pole-zero doublet, the pole the
+// simulated bench's transient after a change decays with:
+// e(τ) = Re{e0·e^((−σ + jωd)·τ)}.
+func (s *Scenario) SettlingPole(load string) (sigma, wd float64, err error) {
+	op, err := s.point(load)
+	if err != nil {
+		return 0, 0, err
+	}
+	sigma, wd = settlingPole(s.loop(op.LoadOhm))
+	return sigma, wd, nil
+}

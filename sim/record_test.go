@@ -413,3 +413,69 @@ func TestRecordNoiseStatistics(t *testing.T) {
 		t.Errorf("channels correlated: %.3g", r)
 	}
 }
+
+// The transient after a change of frequency leaks into the single-bin
+// DFT of a record as the closed form of a sampled damped exponential
+// says: with e(n·dt) = Re{E'·zⁿ}, z = e^(p·dt), p = −σ + jωd, E' the
+// transient's amplitude at the record's first sample and w = e^(jω·dt),
+//
+//	(2/N)·Σ e(n·dt)·w⁻ⁿ = (1/N)·[E'·(1 − (z/w)^N)/(1 − z/w) + conj(E')·(1 − (z̄/w)^N)/(1 − z̄/w)]
+//
+// (a geometric series). Measured as the DFT of the record less that of
+// the same record with the transient removed, on the slow-settling
+// scenario file with no noise, no ripple and the soft limit out of reach,
+// within the quantisation (two records each within half a code a
+// sample). The continuous-time form sweep/settle_sim_test.go bounds with,
+// (e^(−σ·td)/T)·[E·(e^((p−jω)T) − 1)/(p − jω) + c.c.], agrees within 2%.
+func TestTransientLeakageClosedForm(t *testing.T) {
+	sc, err := LoadScenario("../testdata/scenarios/slow-settling.toml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	quiet := *sc
+	quiet.Meas.NoiseVrms, quiet.Meas.RippleVpp, quiet.Meas.SaturationV = 0, 0, 1e3
+	const f1, f2, amp, td = 380.0, 480.0, 0.02, 0.5e-3
+	for _, change := range []float64{1, 1 + 0.3/f1, 1 + 0.7/f1} { // three phases at the change
+		b := newBench(&quiet, quiet.Points[0], 1)
+		b.setGenerator(0, true, f1, amp, 0)
+		b.setGenerator(change, true, f2, amp, 0)
+		const n = 2000
+		dt := 10 / f2 / n // ten cycles
+		cs := chanSetup{rangeV: 0.05, offsetV: quiet.VoutV(), bits: 16}
+		dftOf := func(b *bench) (complex128, complex128) {
+			c1, c2 := make([]int16, n), make([]int16, n)
+			b.record(c1, c2, change+td, dt, cs, cs, 0, 0)
+			x1, x2 := make([]float64, n), make([]float64, n)
+			for i := range c1 {
+				x1[i], x2[i] = float64(c1[i])*cs.lsb(), float64(c2[i])*cs.lsb()
+			}
+			return dft(x1, dt, f2), dft(x2, dt, f2)
+		}
+		with1, with2 := dftOf(b)
+		still := *b
+		still.tr.e0 = 0
+		without1, without2 := dftOf(&still)
+		p := complex(-b.sigma, b.wd)
+		e := b.tr.e0 * complex(quiet.Meas.TransientGain, 0) * cmplx.Exp(p*complex(td, 0))
+		z, w := cmplx.Exp(p*complex(dt, 0)), cmplx.Exp(complex(0, 2*math.Pi*f2*dt))
+		geo := func(e, z complex128) complex128 { return e * (1 - cmplx.Pow(z/w, n)) / (1 - z/w) }
+		want := (geo(e, z) + geo(cmplx.Conj(e), cmplx.Conj(z))) / n
+		tol := 2 * cs.lsb()
+		for ch, got := range []complex128{with1 - without1, with2 - without2} {
+			if cmplx.Abs(got-want) > tol {
+				t.Errorf("change at %g s, channel %d: leakage %.4g V, closed form %.4g V", change, ch+1, got, want)
+			}
+		}
+		T := n * dt
+		jw := complex(0, 2*math.Pi*f2)
+		e0 := b.tr.e0 * complex(quiet.Meas.TransientGain, 0)
+		cont := func(e, p complex128) complex128 {
+			return e * cmplx.Exp(p*complex(td, 0)) * (cmplx.Exp((p-jw)*complex(T, 0)) - 1) / (p - jw)
+		}
+		approx := (cont(e0, p) + cont(cmplx.Conj(e0), cmplx.Conj(p))) / complex(T, 0)
+		if cmplx.Abs(approx-want) > 0.02*cmplx.Abs(want) {
+			t.Errorf("change at %g s: continuous form %.4g V, sampled %.4g V", change, approx, want)
+		}
+		t.Logf("change at %g s: |E| %.3g mV, leakage %.3g µV (%.2f%% of |V1|)", change, 1e3*cmplx.Abs(e0), 1e6*cmplx.Abs(want), 100*cmplx.Abs(want)/cmplx.Abs(without1))
+	}
+}
