@@ -88,17 +88,24 @@ func releaseTables(t *tables) { tablePool.Put(t) }
 
 func newTables(b int, r float64, k int, hannN int) *tables {
 	t := tablePool.Get().(*tables)
-	need := 2 * k * b
+	// Each slice starts tablePad values (320 bytes) further along a 4 KiB
+	// page than the one before, and none at a page start: with slices
+	// 4 KiB apart (512 values) the kernels' loads and the stores of the
+	// windowed blocks would share their low 12 address bits, which the
+	// CPU takes for a possible overlap and waits on (4K aliasing).
+	const tablePad = 40
+	slices := 2 * k
 	if hannN > 0 {
-		need += 4 * b
+		slices += 4
 	}
+	need := slices * (b + tablePad)
 	if cap(t.buf) < need {
 		t.buf = make([]float64, need)
 	}
 	buf := t.buf[:need]
 	cut := func() []float64 {
-		s := buf[:b:b]
-		buf = buf[b:]
+		s := buf[tablePad : tablePad+b : tablePad+b]
+		buf = buf[tablePad+b:]
 		return s
 	}
 	*t = tables{buf: t.buf}
