@@ -27,7 +27,7 @@ const (
 	// times it is kept, to avoid reconfiguring at every point.
 	rangeHysteresis = 3.0
 	// swingHeadroom: the window is at least this many times the raw
-	// record's largest excursion from its DC level.
+	// record's largest excursion from the window's centre.
 	swingHeadroom = 1.5
 	// maxCaptureTries bounds re-captures (DC level, clipping, range)
 	// within one attempt.
