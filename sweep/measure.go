@@ -287,12 +287,15 @@ func (e *Engine) runJob(ctx context.Context, j job) (err error) {
 		idx = e.findLocked(j.freq)
 		n := len(e.sess.Points[idx].Attempts)
 		e.mu.Unlock()
+		// The previous job's point is saved while this one settles, and
+		// this PointStarted waits for that save.
+		var save func()
 		if ev := (PointStarted{Index: idx, FreqHz: j.freq, Attempt: n + 1}); e.unsaved {
-			e.saveThenAnnounce(ev)
+			save = func() { e.saveThenAnnounce(ev) }
 		} else {
 			e.emit(ev)
 		}
-		a, err := e.measureOnce(ctx, stepCtx, set, j.freq, amp, cycles)
+		a, err := e.measureOnce(ctx, stepCtx, set, j.freq, amp, cycles, save)
 		if err != nil {
 			return err
 		}
@@ -373,9 +376,9 @@ func (e *Engine) runJob(ctx context.Context, j job) (err error) {
 }
 
 // saveThenAnnounce saves the session in the background, while the point
-// that ev starts is set up and settles, and publishes ev once the save
-// has succeeded, so a PointStarted still means every earlier point is on
-// disk. joinSave waits for it: every capture does so first.
+// that ev starts settles, and publishes ev once the save has succeeded,
+// so a PointStarted still means every earlier point is on disk.
+// joinSave waits for it: every capture does so first.
 func (e *Engine) saveThenAnnounce(ev PointStarted) {
 	e.unsaved = false
 	done := make(chan error, 1)
@@ -455,8 +458,17 @@ func judge(set Settings, a Attempt) (string, float64) {
 // generator to the tone the record holds a whole number of cycles of
 // (amplitude before output on, large steps ramped), configures the
 // digitizer while the loop settles, waits out the rest of the settling
-// time, captures with auto ranging, and extracts the response.
-func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp float64, cycles int) (Attempt, error) {
+// time, captures with auto ranging, and extracts the response. save,
+// when not nil, starts the background save of the session: it is called
+// once, when the settling wait begins (so it does not slow the exchanges
+// before it), or before the first capture when there is no wait.
+func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp float64, cycles int, save func()) (Attempt, error) {
+	startSave := func() {
+		if save != nil {
+			save()
+			save = nil
+		}
+	}
 	started := e.cfg.Now()
 	amp = clampAmp(amp, set.MaxAmpVpp)
 	var (
@@ -494,6 +506,7 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 			if changed {
 				settled := t0.Add(set.SettleTime(tone))
 				if !e.ranged && math.Abs(actual-tone) <= 1e-9*tone {
+					startSave()
 					ranged, err := e.rangeWhileSettling(ctx, stepCtx, want, got, tone, settled)
 					if err != nil {
 						return Attempt{}, err
@@ -507,6 +520,7 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 						actual = c / (float64(got.Points) * got.IntervalS)
 					}
 				}
+				startSave()
 				if err := e.sleep(ctx, stepCtx, settled.Sub(e.cfg.Now())); err != nil {
 					return Attempt{}, err
 				}
@@ -519,6 +533,7 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 		if e.interrupted() {
 			return Attempt{}, errInterrupted
 		}
+		startSave()
 		if err := e.joinSave(); err != nil {
 			return Attempt{}, fmt.Errorf("save session: %w", err)
 		}
