@@ -66,11 +66,11 @@ func medianRatio(a, b func(), rounds int) float64 {
 // and the shared machine's load would otherwise decide the ratio.
 //
 // Measured with -benchtime 20x on the shared 2-core AMD EPYC (AVX2+FMA
-// kernels), three runs, load 1.4–2: x-plain-sum for single-bin 0.76–1.24
-// (1e4), 0.66–0.81 (1e5), 0.77–0.84 (1e6); harmonics 1.7–2.3; hann
-// 2.0–4.8; x-faster-than-fft for single-bin 145–218 at 1e5 and 165–208
-// at 1e6. The pure-Go loops (-tags purego) measure 3.2–4.7
-// x-plain-sum for single-bin.
+// kernels), six runs, load 1.4–3: x-plain-sum for single-bin 0.77–1.24
+// (1e4), 0.57–0.83 (1e5), 0.57–0.84 (1e6); harmonics 1.2–2.6; hann
+// 1.8–4.8; x-faster-than-fft for single-bin 106–218 at 1e5 and 130–208
+// at 1e6. The pure-Go loops (-tags purego) measure 3.2–4.7 x-plain-sum
+// for single-bin.
 func BenchmarkEstimatePair(b *testing.B) {
 	variants := []struct {
 		name string
