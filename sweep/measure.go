@@ -507,18 +507,17 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 				settled := t0.Add(set.SettleTime(tone))
 				if !e.ranged && math.Abs(actual-tone) <= 1e-9*tone {
 					startSave()
-					ranged, err := e.rangeWhileSettling(ctx, stepCtx, want, got, tone, settled)
-					if err != nil {
+					if err := e.rangeWhileSettling(ctx, stepCtx, want, got, tone, settled); err != nil {
 						return Attempt{}, err
 					}
-					if ranged {
-						want.Channels = e.chans
-						if got, err = e.configure(ctx, want, tone); err != nil {
-							return Attempt{}, err
-						}
-						c = math.Max(1, math.Round(float64(got.Points)*tone*got.IntervalS))
-						actual = c / (float64(got.Points) * got.IntervalS)
+					// The attempt's own record, with the windows learned (a
+					// no-op when no ranging record was taken).
+					want.Channels = e.chans
+					if got, err = e.configure(ctx, want, tone); err != nil {
+						return Attempt{}, err
 					}
+					c = math.Max(1, math.Round(float64(got.Points)*tone*got.IntervalS))
+					actual = c / (float64(got.Points) * got.IntervalS)
 				}
 				startSave()
 				if err := e.sleep(ctx, stepCtx, settled.Sub(e.cfg.Now())); err != nil {
@@ -1015,18 +1014,17 @@ const (
 // from short records of the tone, taken during the settling wait that
 // ends at settled and as late in it as they fit, so the loop is as near
 // its steady state as the wait allows. Only the windows are learned:
-// the attempt's own record is still captured after settled. It takes
-// none when no ranging record fits before settled, and reports whether
-// it took any; a ranging fit that fails ends the ranging (the attempt's
-// own captures then range as before). want and got are the attempt's
-// record as planned and as configured.
-func (e *Engine) rangeWhileSettling(ctx, stepCtx context.Context, want, got instr.CaptureSettings, tone float64, settled time.Time) (bool, error) {
+// the attempt's own record is still captured after settled, and the
+// caller configures it again. It takes none when no ranging record fits
+// before settled; a ranging fit that fails ends the ranging (the
+// attempt's own captures then range as before). want and got are the
+// attempt's record as planned and as configured.
+func (e *Engine) rangeWhileSettling(ctx, stepCtx context.Context, want, got instr.CaptureSettings, tone float64, settled time.Time) error {
 	n := int(math.Ceil(rangingCycles / (tone * got.IntervalS)))
 	if n >= got.Points {
-		return false, nil
+		return nil
 	}
 	per := time.Duration(float64(n)*got.IntervalS*float64(time.Second)) + rangingExchange
-	ranged := false
 	for k := 0; k < rangingCaptures; k++ {
 		// Room for this record and, after the last, the attempt's Configure.
 		left := settled.Sub(e.cfg.Now())
@@ -1035,37 +1033,33 @@ func (e *Engine) rangeWhileSettling(ctx, stepCtx context.Context, want, got inst
 		}
 		if wait := left - time.Duration(rangingCaptures-k)*per - rangingExchange; wait > 0 {
 			if err := e.sleep(ctx, stepCtx, wait); err != nil {
-				return ranged, err
+				return err
 			}
 		}
 		if e.interrupted() {
-			return ranged, errInterrupted
+			return errInterrupted
 		}
 		w := want
 		w.Points, w.Channels = n, e.chans
 		g, err := e.configure(ctx, w, tone)
 		if err != nil {
-			return ranged, err
+			return err
 		}
 		if err := e.joinSave(); err != nil {
-			return ranged, fmt.Errorf("save session: %w", err)
+			return fmt.Errorf("save session: %w", err)
 		}
 		b1, b2 := e.buf1[:g.Points], e.buf2[:g.Points]
 		if err := e.cfg.Dig.Capture(ctx, b1, b2); err != nil {
-			return ranged, fmt.Errorf("ranging capture of %d points at %g Hz: %w", g.Points, tone, err)
+			return fmt.Errorf("ranging capture of %d points at %g Hz: %w", g.Points, tone, err)
 		}
 		o1, o2 := clipWindow(g.Channels[0]), clipWindow(g.Channels[1])
 		o1.Window, o2.Window = analysis.Hann, analysis.Hann
 		t1, t2, err := analysis.EstimatePair(b1, b2, g.IntervalS, tone, o1, o2)
-		if err != nil {
-			break
-		}
-		ranged = true
-		if !e.autorange(t1, t2, [2]extent{extentOf(b1), extentOf(b2)}, g) {
+		if err != nil || !e.autorange(t1, t2, [2]extent{extentOf(b1), extentOf(b2)}, g) {
 			break
 		}
 	}
-	return ranged, nil
+	return nil
 }
 
 // configure sends the capture settings unless they equal the last ones
