@@ -376,9 +376,7 @@ func (b *bench) recordPiece(c1, c2 []int16, e1, e2 []byte, tab [2]*real32Codes, 
 	tabs := new(phasorTables)
 	pd := complex(-b.sigma*dt, b.wd*dt)
 	for k := range block {
-		tabs.tone[k] = cmplx.Exp(complex(0, w*dt*float64(k)))
-		tabs.ripple[k] = cmplx.Exp(complex(0, wr*dt*float64(k)))
-		tabs.decay[k] = cmplx.Exp(pd * complex(float64(k), 0))
+		tabs.set(k, cmplx.Exp(complex(0, w*dt*float64(k))), cmplx.Exp(complex(0, wr*dt*float64(k))), cmplx.Exp(pd*complex(float64(k), 0)))
 	}
 	for start := 0; start < len(c1); start += block {
 		end := min(start+block, len(c1))
@@ -421,9 +419,20 @@ func (b *bench) recordPiece(c1, c2 []int16, e1, e2 []byte, tab [2]*real32Codes, 
 }
 
 // phasorTables hold one block's rotations of the tone, the ripple and
-// the transient's decay, e^(p·k·dt) for k = 0..block−1.
+// the transient's decay, e^(p·k·dt) for k = 0..block−1, as real and
+// imaginary parts in separate arrays (so a vector kernel loads four
+// consecutive samples' worth at once). The layout is fixed:
+// record_amd64.s addresses the arrays by offset.
 type phasorTables struct {
-	tone, ripple, decay [block]complex128
+	toneC, toneS [block]float64 // e^(jω·k·dt)
+	ripC, ripS   [block]float64 // e^(jωr·k·dt)
+	decC, decS   [block]float64 // e^((−σ+jωd)·k·dt)
+}
+
+func (t *phasorTables) set(k int, tone, ripple, decay complex128) {
+	t.toneC[k], t.toneS[k] = real(tone), imag(tone)
+	t.ripC[k], t.ripS[k] = real(ripple), imag(ripple)
+	t.decC[k], t.decS[k] = real(decay), imag(decay)
 }
 
 // nonlin is the output stage's soft limit as recordPiece applies it:
@@ -445,11 +454,13 @@ type blockPhasors struct{ y, v, r, e complex128 }
 // tabulated rotation, so no sample waits for the previous one. Blocks
 // whose swing stays in the small-signal range (bounded by |y| + |e|, as
 // the transient only decays) take a loop without a branch per sample,
-// and without the transient's terms once it is over.
+// and without the transient's terms once it is over; that loop, the
+// common one, runs as an AVX2 kernel where the CPU has it
+// (record_amd64.s).
 //
 //go:noinline
 func (ph blockPhasors) fill(xb, yb *[block]float64, tab *phasorTables, nl nonlin) {
-	tt, tr, td := &tab.tone, &tab.ripple, &tab.decay
+	tc, ts, rc, rs, dc, ds := &tab.toneC, &tab.toneS, &tab.ripC, &tab.ripS, &tab.decC, &tab.decS
 	yr, yi := real(ph.y), imag(ph.y)
 	vr, vi := real(ph.v), imag(ph.v)
 	rr, ri := real(ph.r), imag(ph.r)
@@ -458,32 +469,35 @@ func (ph blockPhasors) fill(xb, yb *[block]float64, tab *phasorTables, nl nonlin
 	small := (cmplx.Abs(ph.y)+cmplx.Abs(ph.e))/nl.sat < smallSignal
 	switch {
 	case small && ph.e == 0:
+		if fillSmallFast(xb, yb, tab, &[8]float64{yr, yi, vr, vi, rr, ri, sq, k3}) {
+			return
+		}
 		for k := range block {
-			c, s := real(tt[k]), imag(tt[k])
+			c, s := tc[k], ts[k]
 			u := yr*c - yi*s
-			y := u + u*u*(sq-u*k3) + rr*imag(tr[k]) + ri*real(tr[k])
+			y := u + u*u*(sq-u*k3) + rr*rs[k] + ri*rc[k]
 			yb[k] = y
 			xb[k] = y + vr*c - vi*s
 		}
 	case small:
 		for k := range block {
-			c, s := real(tt[k]), imag(tt[k])
-			u := yr*c - yi*s + er*real(td[k]) - ei*imag(td[k])
-			y := u + u*u*(sq-u*k3) + rr*imag(tr[k]) + ri*real(tr[k])
+			c, s := tc[k], ts[k]
+			u := yr*c - yi*s + er*dc[k] - ei*ds[k]
+			y := u + u*u*(sq-u*k3) + rr*rs[k] + ri*rc[k]
 			yb[k] = y
 			xb[k] = y + vr*c - vi*s
 		}
 	default:
 		for k := range block {
-			c, s := real(tt[k]), imag(tt[k])
-			u := yr*c - yi*s + er*real(td[k]) - ei*imag(td[k])
+			c, s := tc[k], ts[k]
+			u := yr*c - yi*s + er*dc[k] - ei*ds[k]
 			var y float64
 			if x := u / nl.sat; x < smallSignal && x > -smallSignal {
 				y = u + u*u*(sq-u*k3)
 			} else {
 				y = u + nl.ks*(softLimit(u, nl.sat)-u)
 			}
-			y += rr*imag(tr[k]) + ri*real(tr[k]) // ripA·Im(zr·e^(jωr·k·dt))
+			y += rr*rs[k] + ri*rc[k] // ripA·Im(zr·e^(jωr·k·dt))
 			yb[k] = y
 			xb[k] = y + vr*c - vi*s // amp·Re(zt·e^(jω·k·dt))
 		}
@@ -545,13 +559,17 @@ func (a *adc) quantise(out *[block]int16, v *[block]float64, nz *[block]float32,
 }
 
 // quantiseEncode is quantise that also writes each code's REAL,32 word
-// from tab into body.
+// from tab into body. Without the clip it runs as an AVX2 kernel where
+// the CPU has it (record_amd64.s).
 //
 //go:noinline
 func (a *adc) quantiseEncode(out *[block]int16, body *[4 * block]byte, tab *real32Codes, v *[block]float64, nz *[block]float32, clip bool) {
 	base, inv, sn, lo, hi := a.base, a.inv, a.sn, a.flo, a.fhi
 	o, bs, vs, ns, ws := out[:], body[:], v[:], nz[:], tab[:]
 	if !clip {
+		if quantiseEncodeFast(out, body, tab, v, nz, &[3]float64{base, inv, sn}) {
+			return
+		}
 		for k := range block {
 			q := int32(base+vs[k]*inv+float64(ns[k])*sn) - 65536
 			o[k] = int16(q)

@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"math"
 	"math/cmplx"
+	"math/rand/v2"
 	"slices"
 	"testing"
 	"time"
@@ -272,13 +273,12 @@ func referenceCodes(b *bench, n int, t0, dt float64, cs [2]chanSetup, n1, n2 int
 // the cases the fast paths take and in those they must leave: a
 // transient in progress, a swing outside the small-signal range, a
 // window that clips, a record that is not a whole number of blocks,
-// 8 and 16 bits.
+// 8 and 16 bits; with the AVX2 kernels and with the Go loops.
 func TestRecordMatchesReference(t *testing.T) {
 	sc, err := LoadScenario("marginal")
 	if err != nil {
 		t.Fatal(err)
 	}
-	vout := sc.VoutV()
 	cases := []struct {
 		name      string
 		at        float64 // capture start after the last change at 0.01 s
@@ -293,46 +293,72 @@ func TestRecordMatchesReference(t *testing.T) {
 		{"clipping window", 0.02, 2000, 0.04, 0.002, 0.002, 8, 5000, false},
 		{"partial block, AC coupled", 0.02, 15000, 0.02, 0.05, 0.02, 14, 3333, true},
 	}
-	for _, c := range cases {
-		t.Run(c.name, func(t *testing.T) {
-			b := newBench(sc, sc.Points[0], 11)
-			b.setGenerator(0, true, 1000, c.amp, 0)
-			b.setGenerator(0.01, true, c.f, c.amp, 0)
-			cs := [2]chanSetup{
-				{rangeV: c.r1, offsetV: vout, bits: c.bits},
-				{rangeV: c.r2, offsetV: vout, bits: c.bits, ac: c.alternate},
+	defer func(v bool) { useAVX2 = v }(useAVX2)
+	kernels := []bool{false}
+	if useAVX2 {
+		kernels = append(kernels, true) // the vector kernels, and the Go loops they replace
+	}
+	for _, avx := range kernels {
+		useAVX2 = avx
+		for _, c := range cases {
+			t.Run(fmt.Sprintf("%s/avx2=%v", c.name, avx), func(t *testing.T) {
+				testRecordCase(t, sc, c.at, c.f, c.amp, c.r1, c.r2, c.bits, c.n, c.alternate)
+			})
+		}
+	}
+}
+
+// testRecordCase checks one case of TestRecordMatchesReference through
+// both of the generator's paths: codes alone (record) and codes with
+// their REAL,32 blocks (generate, as INITiate does).
+func testRecordCase(t *testing.T, sc *Scenario, at, f, amp, r1, r2 float64, bits, n int, alternate bool) {
+	t.Helper()
+	b := newBench(sc, sc.Points[0], 11)
+	b.setGenerator(0, true, 1000, amp, 0)
+	b.setGenerator(0.01, true, f, amp, 0)
+	cs := [2]chanSetup{
+		{rangeV: r1, offsetV: sc.VoutV(), bits: bits},
+		{rangeV: r2, offsetV: sc.VoutV(), bits: bits, ac: alternate},
+	}
+	if alternate {
+		cs[1].offsetV = 0
+	}
+	const dt = 1e-6
+	want1, want2 := referenceCodes(b, n, at, dt, cs, 4096, 77777)
+	got1, got2 := make([]int16, n), make([]int16, n)
+	b.record(got1, got2, at, dt, cs[0], cs[1], 4096, 77777)
+	enc1, enc2, enc := b.generate(n, at, dt, cs, "REAL,32", false, 4096, 77777)
+	for i, codes := range [][]int16{enc1, enc2} {
+		if want := encodeRecord(codes, cs[i], "REAL,32", false); !bytes.Equal(enc[i].reply, want.reply) {
+			t.Errorf("channel %d: generate's REAL,32 block is not its codes' encoding", i+1)
+		}
+	}
+	if r1 < amp {
+		// the case must reach the rails to check the clip
+		hi := int16(int(1)<<(bits-1) - 1)
+		if !slices.Contains(got1, hi) || !slices.Contains(got1, -hi-1) {
+			t.Fatalf("no clipped code in a %g V window for a %g V tone", r1, amp)
+		}
+	}
+	for _, pair := range []struct {
+		name      string
+		got, want []int16
+	}{{"record ch1", got1, want1}, {"record ch2", got2, want2}, {"generate ch1", enc1, want1}, {"generate ch2", enc2, want2}} {
+		diff := 0
+		for i := range pair.got {
+			d := int(pair.got[i]) - int(pair.want[i])
+			if d > 1 || d < -1 {
+				t.Fatalf("%s sample %d: code %d, reference %d", pair.name, i, pair.got[i], pair.want[i])
 			}
-			if c.alternate {
-				cs[1].offsetV = 0
+			if d != 0 {
+				diff++
 			}
-			const dt = 1e-6
-			want1, want2 := referenceCodes(b, c.n, c.at, dt, cs, 4096, 77777)
-			got1, got2 := make([]int16, c.n), make([]int16, c.n)
-			b.record(got1, got2, c.at, dt, cs[0], cs[1], 4096, 77777)
-			if c.r1 < c.amp {
-				// the case must reach the rails to check the clip
-				hi := int16(int(1)<<(c.bits-1) - 1)
-				if !slices.Contains(got1, hi) || !slices.Contains(got1, -hi-1) {
-					t.Fatalf("no clipped code in a %g V window for a %g V tone", c.r1, c.amp)
-				}
-			}
-			for ch, pair := range [][2][]int16{{got1, want1}, {got2, want2}} {
-				diff := 0
-				for i := range pair[0] {
-					d := int(pair[0][i]) - int(pair[1][i])
-					if d > 1 || d < -1 {
-						t.Fatalf("channel %d sample %d: code %d, reference %d", ch+1, i, pair[0][i], pair[1][i])
-					}
-					if d != 0 {
-						diff++
-					}
-				}
-				t.Logf("channel %d: %d of %d codes differ by one", ch+1, diff, c.n)
-				if diff*10000 > 5*c.n {
-					t.Errorf("channel %d: %d of %d codes differ by one", ch+1, diff, c.n)
-				}
-			}
-		})
+		}
+		if diff*10000 > 5*n {
+			t.Errorf("%s: %d of %d codes differ by one", pair.name, diff, n)
+		} else if diff > 0 {
+			t.Logf("%s: %d of %d codes differ by one", pair.name, diff, n)
+		}
 	}
 }
 
@@ -477,5 +503,70 @@ func TestTransientLeakageClosedForm(t *testing.T) {
 			t.Errorf("change at %g s: continuous form %.4g V, sampled %.4g V", change, approx, want)
 		}
 		t.Logf("change at %g s: |E| %.3g mV, leakage %.3g µV (%.2f%% of |V1|)", change, 1e3*cmplx.Abs(e0), 1e6*cmplx.Abs(want), 100*cmplx.Abs(want)/cmplx.Abs(without1))
+	}
+}
+
+// The AVX2 kernels compute what the Go loops they replace compute: fill's
+// outputs within a few ulps (fused multiply-adds round once where Go
+// rounds twice), quantiseEncode's codes equal except where the value sits
+// within 1e-9 of a half code, and every REAL,32 word the table's for its
+// code (the gather). Random phasors, tables and noise, codes of both
+// signs.
+func TestKernelsMatchGoLoops(t *testing.T) {
+	if !useAVX2 {
+		t.Skip("no AVX2+FMA on this machine: only the Go loops run")
+	}
+	defer func(v bool) { useAVX2 = v }(useAVX2)
+	rng := rand.New(rand.NewPCG(3, 4))
+	tabs := new(phasorTables)
+	for k := range block {
+		tabs.set(k, cmplx.Rect(1, rng.Float64()*7), cmplx.Rect(1, rng.Float64()*7), cmplx.Rect(rng.Float64(), rng.Float64()*7))
+	}
+	nz := new([block]float32)
+	for k := range nz {
+		nz[k] = float32(rng.NormFloat64())
+	}
+	cs := chanSetup{rangeV: 0.05, offsetV: 3.3, bits: 14}
+	tab := newReal32Codes(cs, false)
+	neg, pos := false, false
+	for trial := range 20 {
+		ph := blockPhasors{
+			y: cmplx.Rect(0.04*rng.Float64(), rng.Float64()*7),
+			v: cmplx.Rect(0.02*rng.Float64(), rng.Float64()*7),
+			r: cmplx.Rect(0.004*rng.Float64(), rng.Float64()*7),
+		}
+		nl := nonlin{sat: 0.5, ks: rng.Float64(), sq: 0.3 * rng.Float64(), k3: rng.Float64()}
+		var xg, yg, xa, ya [block]float64
+		useAVX2 = false
+		ph.fill(&xg, &yg, tabs, nl)
+		useAVX2 = true
+		ph.fill(&xa, &ya, tabs, nl)
+		for k := range block {
+			if math.Abs(xa[k]-xg[k]) > 1e-15 || math.Abs(ya[k]-yg[k]) > 1e-15 {
+				t.Fatalf("trial %d sample %d: AVX2 fill (%g, %g), Go (%g, %g)", trial, k, xa[k], ya[k], xg[k], yg[k])
+			}
+		}
+		a := newADC(cs, cs.offsetV+0.01*(rng.Float64()-0.5), 1e-4)
+		var og, oa [block]int16
+		var bg, ba [4 * block]byte
+		useAVX2 = false
+		a.quantiseEncode(&og, &bg, tab, &xg, nz, false)
+		useAVX2 = true
+		a.quantiseEncode(&oa, &ba, tab, &xg, nz, false)
+		for k := range block {
+			if oa[k] != og[k] {
+				q := a.base + xg[k]*a.inv + float64(nz[k])*a.sn
+				if math.Abs(q-math.Round(q)) > 1e-9 { // not a tie
+					t.Fatalf("trial %d sample %d: AVX2 code %d, Go %d (value %.12f)", trial, k, oa[k], og[k], q-65536)
+				}
+			}
+			if got, want := binary.LittleEndian.Uint32(ba[4*k:]), tab[uint16(oa[k])]; got != want {
+				t.Fatalf("trial %d sample %d: REAL,32 word %#x, the table's for code %d is %#x", trial, k, got, oa[k], want)
+			}
+			neg, pos = neg || oa[k] < 0, pos || oa[k] > 0
+		}
+	}
+	if !neg || !pos {
+		t.Fatalf("codes of one sign only: the gather's index mask is not exercised")
 	}
 }
