@@ -407,7 +407,7 @@ func (b *bench) recordPiece(c1, c2 []int16, e1, e2 []byte, tab [2]*real32Codes, 
 		// A full block whose conversion runs as a vector kernel is
 		// written straight into the record (its wide stores need no
 		// buffer); the others go through the buffers.
-		direct := end-start == block && e1 != nil && useAVX2 && !clip1 && !clip2
+		direct := end-start == block && e1 != nil && useAVX2
 		p1, p2, d1, d2 := &o1, &o2, &b1, &b2
 		if direct {
 			p1, p2 = (*[block]int16)(c1[start:]), (*[block]int16)(c2[start:])
@@ -467,9 +467,8 @@ type blockPhasors struct{ y, v, r, e complex128 }
 // tabulated rotation, so no sample waits for the previous one. Blocks
 // whose swing stays in the small-signal range (bounded by |y| + |e|, as
 // the transient only decays) take a loop without a branch per sample,
-// and without the transient's terms once it is over; that loop, the
-// common one, runs as an AVX2 kernel where the CPU has it
-// (record_amd64.s).
+// and without the transient's terms once it is over; the small-signal
+// loops run as an AVX2 kernel where the CPU has it (record_amd64.s).
 //
 //go:noinline
 func (ph blockPhasors) fill(xb, yb *[block]float64, tab *phasorTables, nl nonlin) {
@@ -480,11 +479,11 @@ func (ph blockPhasors) fill(xb, yb *[block]float64, tab *phasorTables, nl nonlin
 	er, ei := real(ph.e), imag(ph.e)
 	sq, k3 := nl.sq, nl.k3
 	small := (cmplx.Abs(ph.y)+cmplx.Abs(ph.e))/nl.sat < smallSignal
+	if small && fillSmallFast(xb, yb, tab, &[10]float64{yr, yi, vr, vi, rr, ri, sq, k3, er, ei}) {
+		return
+	}
 	switch {
 	case small && ph.e == 0:
-		if fillSmallFast(xb, yb, tab, &[8]float64{yr, yi, vr, vi, rr, ri, sq, k3}) {
-			return
-		}
 		for k := range block {
 			c, s := tc[k], ts[k]
 			u := yr*c - yi*s
@@ -572,17 +571,17 @@ func (a *adc) quantise(out *[block]int16, v *[block]float64, nz *[block]float32,
 }
 
 // quantiseEncode is quantise that also writes each code's REAL,32 word
-// from tab into body. Without the clip it runs as an AVX2 kernel where
-// the CPU has it (record_amd64.s).
+// from tab into body. It runs as an AVX2 kernel where the CPU has it
+// (record_amd64.s).
 //
 //go:noinline
 func (a *adc) quantiseEncode(out *[block]int16, body *[4 * block]byte, tab *real32Codes, v *[block]float64, nz *[block]float32, clip bool) {
 	base, inv, sn, lo, hi := a.base, a.inv, a.sn, a.flo, a.fhi
+	if quantiseEncodeFast(out, body, tab, v, nz, &[5]float64{base, inv, sn, lo, hi}) {
+		return
+	}
 	o, bs, vs, ns, ws := out[:], body[:], v[:], nz[:], tab[:]
 	if !clip {
-		if quantiseEncodeFast(out, body, tab, v, nz, &[3]float64{base, inv, sn}) {
-			return
-		}
 		for k := range block {
 			q := int32(base+vs[k]*inv+float64(ns[k])*sn) - 65536
 			o[k] = int16(q)

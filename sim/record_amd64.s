@@ -12,9 +12,12 @@
 #define TONES 8192
 #define RIPC 16384
 #define RIPS 24576
+#define DECC 32768
+#define DECS 40960
 
-// func fillSmallAVX2(xb, yb *[1024]float64, t *phasorTables, c *[8]float64)
-// u = yr·C − yi·S; y = u + u²·(sq − u·k3) + rr·RS + ri·RC; x = y + vr·C − vi·S.
+// func fillSmallAVX2(xb, yb *[1024]float64, t *phasorTables, c *[10]float64)
+// u = yr·C − yi·S + er·DC − ei·DS; y = u + u²·(sq − u·k3) + rr·RS + ri·RC;
+// x = y + vr·C − vi·S.
 TEXT ·fillSmallAVX2(SB), NOSPLIT, $0-32
 	MOVQ         xb+0(FP), DI
 	MOVQ         yb+8(FP), SI
@@ -28,6 +31,7 @@ TEXT ·fillSmallAVX2(SB), NOSPLIT, $0-32
 	VBROADCASTSD 40(CX), Y13 // ri
 	VBROADCASTSD 48(CX), Y14 // sq
 	VBROADCASTSD 56(CX), Y15 // k3
+	VBROADCASTSD 64(CX), Y7  // er
 	XORQ         AX, AX
 
 fill4:
@@ -35,6 +39,11 @@ fill4:
 	VMOVUPD      TONES(DX)(AX*8), Y1 // S
 	VMULPD       Y8, Y0, Y2          // u = yr·C
 	VFNMADD231PD Y9, Y1, Y2          // u −= yi·S
+	VMOVUPD      DECC(DX)(AX*8), Y5
+	VFMADD231PD  Y7, Y5, Y2          // u += er·DC
+	VMOVUPD      DECS(DX)(AX*8), Y6
+	VBROADCASTSD 72(CX), Y3          // ei
+	VFNMADD231PD Y3, Y6, Y2          // u −= ei·DS
 	VMOVAPD      Y14, Y3
 	VFNMADD231PD Y15, Y2, Y3         // t = sq − u·k3
 	VMULPD       Y2, Y2, Y4          // u²
@@ -59,8 +68,9 @@ GLOBL q65536<>(SB), RODATA|NOPTR, $4
 DATA qmask<>+0(SB)/4, $0xffff
 GLOBL qmask<>(SB), RODATA|NOPTR, $4
 
-// func quantiseEncodeAVX2(out *[1024]int16, body *[4096]byte, tab *real32Codes, v *[1024]float64, nz *[1024]float32, c *[3]float64)
-// q = trunc(base + v·inv + nz·sn) − 65536; out[k] = q; body[4k:] = tab[uint16(q)].
+// func quantiseEncodeAVX2(out *[1024]int16, body *[4096]byte, tab *real32Codes, v *[1024]float64, nz *[1024]float32, c *[5]float64)
+// q = trunc(min(max(base + v·inv + nz·sn, lo), hi)) − 65536; out[k] = q;
+// body[4k:] = tab[uint16(q)].
 TEXT ·quantiseEncodeAVX2(SB), NOSPLIT, $0-48
 	MOVQ         out+0(FP), DI
 	MOVQ         body+8(FP), SI
@@ -71,6 +81,8 @@ TEXT ·quantiseEncodeAVX2(SB), NOSPLIT, $0-48
 	VBROADCASTSD 0(CX), Y8  // base
 	VBROADCASTSD 8(CX), Y9  // inv
 	VBROADCASTSD 16(CX), Y10 // sn
+	VBROADCASTSD 24(CX), Y13 // lo
+	VBROADCASTSD 32(CX), Y14 // hi
 	VPBROADCASTD q65536<>(SB), X11
 	VPBROADCASTD qmask<>(SB), X12
 	XORQ         AX, AX
@@ -80,6 +92,8 @@ quant4:
 	VMOVAPD      Y8, Y2
 	VFMADD231PD  (R8)(AX*8), Y9, Y2 // base + v·inv
 	VFMADD231PD  Y1, Y10, Y2         // + nz·sn
+	VMAXPD       Y13, Y2, Y2         // clip
+	VMINPD       Y14, Y2, Y2
 	VCVTTPD2DQY  Y2, X3              // truncate
 	VPSUBD       X11, X3, X3         // q
 	VPACKSSDW    X3, X3, X4

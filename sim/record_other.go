@@ -7,9 +7,9 @@ package sim
 var useAVX2 = false
 
 // fillSmallFast reports false: the caller's Go loop runs.
-func fillSmallFast(xb, yb *[block]float64, t *phasorTables, c *[8]float64) bool { return false }
+func fillSmallFast(xb, yb *[block]float64, t *phasorTables, c *[10]float64) bool { return false }
 
 // quantiseEncodeFast reports false: the caller's Go loop runs.
-func quantiseEncodeFast(out *[block]int16, body *[4 * block]byte, tab *real32Codes, v *[block]float64, nz *[block]float32, c *[3]float64) bool {
+func quantiseEncodeFast(out *[block]int16, body *[4 * block]byte, tab *real32Codes, v *[block]float64, nz *[block]float32, c *[5]float64) bool {
 	return false
 }

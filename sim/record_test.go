@@ -506,7 +506,8 @@ func TestTransientLeakageClosedForm(t *testing.T) {
 	}
 }
 
-// The AVX2 kernels compute what the Go loops they replace compute: fill's
+// The AVX2 kernels compute what the Go loops they replace compute (with
+// and without a transient, with and without the clip): fill's
 // outputs within a few ulps (fused multiply-adds round once where Go
 // rounds twice), quantiseEncode's codes equal except where the value sits
 // within 1e-9 of a half code, and every REAL,32 word the table's for its
@@ -535,6 +536,9 @@ func TestKernelsMatchGoLoops(t *testing.T) {
 			v: cmplx.Rect(0.02*rng.Float64(), rng.Float64()*7),
 			r: cmplx.Rect(0.004*rng.Float64(), rng.Float64()*7),
 		}
+		if trial%2 == 1 {
+			ph.e = cmplx.Rect(0.01*rng.Float64(), rng.Float64()*7) // a transient in progress
+		}
 		nl := nonlin{sat: 0.5, ks: rng.Float64(), sq: 0.3 * rng.Float64(), k3: rng.Float64()}
 		var xg, yg, xa, ya [block]float64
 		useAVX2 = false
@@ -546,13 +550,25 @@ func TestKernelsMatchGoLoops(t *testing.T) {
 				t.Fatalf("trial %d sample %d: AVX2 fill (%g, %g), Go (%g, %g)", trial, k, xa[k], ya[k], xg[k], yg[k])
 			}
 		}
-		a := newADC(cs, cs.offsetV+0.01*(rng.Float64()-0.5), 1e-4)
+		// every third trial a window the block overflows (clipped)
+		c := cs
+		clip := trial%3 == 2
+		if clip {
+			c.rangeV = 0.01
+		}
+		a := newADC(c, cs.offsetV+0.01*(rng.Float64()-0.5), 1e-4)
 		var og, oa [block]int16
 		var bg, ba [4 * block]byte
 		useAVX2 = false
-		a.quantiseEncode(&og, &bg, tab, &xg, nz, false)
+		a.quantiseEncode(&og, &bg, tab, &xg, nz, clip)
 		useAVX2 = true
-		a.quantiseEncode(&oa, &ba, tab, &xg, nz, false)
+		a.quantiseEncode(&oa, &ba, tab, &xg, nz, clip)
+		if clip {
+			hi := int16(1<<(c.bits-1) - 1)
+			if !slices.Contains(oa[:], hi) && !slices.Contains(oa[:], -hi-1) {
+				t.Fatalf("trial %d: no clipped code", trial)
+			}
+		}
 		for k := range block {
 			if oa[k] != og[k] {
 				q := a.base + xg[k]*a.inv + float64(nz[k])*a.sn
