@@ -30,6 +30,7 @@ type SummaryJSON struct {
 	PhaseCrossovers []PhaseCrossJSON    `json:"phase_crossovers"`
 	ModulusMargin   *float64            `json:"modulus_margin"`
 	ModulusFreqHz   *float64            `json:"modulus_freq_hz"`
+	ModulusSigma    *float64            `json:"modulus_margin_sigma"`
 	Flagged         int                 `json:"flagged"`
 	Complete        bool                `json:"complete"`
 	Points          []PointJSON         `json:"points"`
@@ -138,6 +139,7 @@ func Summary(s *Session) (SummaryJSON, error) {
 	}
 	if m.ModulusMargin > 0 {
 		out.ModulusMargin, out.ModulusFreqHz = ptr(m.ModulusMargin), ptr(m.ModulusFreqHz)
+		out.ModulusSigma = ptr(m.ModulusSigma)
 	}
 	return out, nil
 }
@@ -177,7 +179,11 @@ func (j SummaryJSON) WriteText(w io.Writer) error {
 	if j.GainMarginDB != nil {
 		pr(" ± %.2f dB", sig(j.GainMarginSigma))
 	}
-	pr("\nmodulus margin: %s\n", f(j.ModulusMargin, "%.3f"))
+	pr("\nmodulus margin: %s", f(j.ModulusMargin, "%.3f"))
+	if j.ModulusMargin != nil {
+		pr(" ± %.3f at %.4g Hz", sig(j.ModulusSigma), *j.ModulusFreqHz)
+	}
+	pr("\n")
 	if len(j.GainCrossovers) > 1 || len(j.PhaseCrossovers) > 1 {
 		for _, g := range j.GainCrossovers {
 			pr("  gain crossover %.4g Hz: PM %.2f° ± %.2f°\n", g.FreqHz, g.PhaseMarginDeg, g.SigmaDeg)
