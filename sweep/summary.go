@@ -181,7 +181,7 @@ func (j SummaryJSON) WriteText(w io.Writer) error {
 	}
 	pr("\nmodulus margin: %s", f(j.ModulusMargin, "%.3f"))
 	if j.ModulusMargin != nil {
-		pr(" ± %.3f at %.4g Hz", sig(j.ModulusSigma), *j.ModulusFreqHz)
+		pr(" ± %.2g at %.4g Hz", sig(j.ModulusSigma), *j.ModulusFreqHz)
 	}
 	pr("\n")
 	if len(j.GainCrossovers) > 1 || len(j.PhaseCrossovers) > 1 {
