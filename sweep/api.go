@@ -172,6 +172,11 @@ const (
 	Done
 	Failed
 	Stopped
+	// Reconnecting: an instrument stopped answering (a timeout or a lost
+	// connection); the output is off and the engine is opening the
+	// instruments again (Config.Reconnect) before it resumes at the
+	// point that failed.
+	Reconnecting
 )
 
 // Event is what the engine publishes; front ends switch on the type.
@@ -208,12 +213,41 @@ type (
 		Index  int
 		FreqHz float64
 	}
+	// InstrumentLost: an instrument fault (IsInstrumentFault) cut the
+	// attempt at point Index short; the attempt was dropped, the output
+	// turned off (best effort), and the engine reconnects for at most
+	// Window before it gives up. Err names the command that failed.
+	InstrumentLost struct {
+		Index  int
+		FreqHz float64
+		Err    error
+		Window time.Duration
+	}
+	// ReconnectFailed: reconnection try Try (from 1) failed with Err;
+	// the next try comes after Retry.
+	ReconnectFailed struct {
+		Try   int
+		Err   error
+		Retry time.Duration
+	}
+	// Reconnected: the instruments answer again after Tries tries and
+	// After since the fault; the sweep resumes at point Index (FreqHz),
+	// the one that failed, with its settings applied afresh.
+	Reconnected struct {
+		Tries  int
+		After  time.Duration
+		Index  int
+		FreqHz float64
+	}
 )
 
-func (PointStarted) event()   {}
-func (PointMeasured) event()  {}
-func (PointFlagged) event()   {}
-func (MarginsUpdated) event() {}
-func (StateChanged) event()   {}
-func (ErrorEvent) event()     {}
-func (PointAdded) event()     {}
+func (PointStarted) event()    {}
+func (PointMeasured) event()   {}
+func (PointFlagged) event()    {}
+func (MarginsUpdated) event()  {}
+func (StateChanged) event()    {}
+func (ErrorEvent) event()      {}
+func (PointAdded) event()      {}
+func (InstrumentLost) event()  {}
+func (ReconnectFailed) event() {}
+func (Reconnected) event()     {}

@@ -66,6 +66,28 @@ type Config struct {
 	// interactive front end that may re-measure afterwards).
 	Linger bool
 
+	// Reconnect, when set, is how the engine recovers from an instrument
+	// fault (IsInstrumentFault: a timeout, a lost connection) within the
+	// same run: the failed attempt is dropped, the output turned off
+	// (best effort), the session saved, and Reconnect called, with a
+	// backoff between tries, until it succeeds, Pause or Stop interrupt
+	// it (they cancel its ctx), or ReconnectWindow passes. It must open
+	// the instruments afresh and return the generator and digitizer to
+	// use from then on, identified, set up, with the output off and
+	// empty error queues; it closes what it replaces and what a failed
+	// try opened. The engine then applies the settings again (amplitude
+	// before the output is enabled) and resumes at the point that failed.
+	// Nil keeps the behaviour without it: pause (PauseOnError) or fail.
+	Reconnect func(ctx context.Context) (Generator, Digitizer, error)
+	// ReconnectWindow is how long Reconnect is retried before the engine
+	// gives up: then it pauses (PauseOnError; Resume tries again for a
+	// new window) or fails. Zero means DefaultReconnectWindow.
+	ReconnectWindow time.Duration
+	// ReconnectBackoff is the wait after the first failed try; it doubles
+	// after each further one, up to MaxReconnectBackoff. Zero means
+	// DefaultReconnectBackoff.
+	ReconnectBackoff time.Duration
+
 	// Sleep waits d or until ctx ends; nil means a real timer.
 	Sleep func(ctx context.Context, d time.Duration) error
 	// Now is the clock; nil means time.Now.
@@ -109,6 +131,9 @@ type Engine struct {
 	chans      [2]instr.ChannelSettings
 	dcKnown    bool
 	ranged     bool       // the input windows were set from a reading (autorange)
+	fault      error      // the instrument fault being recovered from; nil: none
+	faultAt    time.Time  // when it happened
+	faultFreq  float64    // the point it hit
 	unsaved    bool       // the last point is not on disk yet: the next job saves it (runJob)
 	saveDone   chan error // that save, running while the next point settles
 	lastWant   instr.CaptureSettings
@@ -160,6 +185,12 @@ func New(cfg Config) (*Engine, error) {
 	}
 	if cfg.MinRangeV <= 0 {
 		cfg.MinRangeV = 1e-3
+	}
+	if cfg.ReconnectWindow <= 0 {
+		cfg.ReconnectWindow = DefaultReconnectWindow
+	}
+	if cfg.ReconnectBackoff <= 0 {
+		cfg.ReconnectBackoff = DefaultReconnectBackoff
 	}
 	e := &Engine{
 		cfg:       cfg,
@@ -474,6 +505,8 @@ func (s State) String() string {
 		return "failed"
 	case Stopped:
 		return "stopped"
+	case Reconnecting:
+		return "reconnecting"
 	}
 	return fmt.Sprintf("state(%d)", int(s))
 }
@@ -536,6 +569,23 @@ func (e *Engine) Run(ctx context.Context) (err error) {
 			e.waitWake(ctx)
 			continue
 		}
+		if e.fault != nil {
+			if err := e.reconnect(ctx); err != nil {
+				if errors.Is(err, errInterrupted) {
+					continue // Pause, Stop or ctx: handled above
+				}
+				e.outputOff()
+				if e.cfg.PauseOnError {
+					// Resume tries again, for a new window.
+					e.mu.Lock()
+					e.paused = true
+					e.mu.Unlock()
+					e.emit(ErrorEvent{Err: err})
+					continue
+				}
+				return e.fail(err)
+			}
+		}
 		j, state, ok := e.nextJob()
 		if !ok {
 			e.outputOff()
@@ -553,6 +603,7 @@ func (e *Engine) Run(ctx context.Context) (err error) {
 			continue
 		}
 		e.setState(state, "")
+		before := e.attemptsAt(j.freq)
 		err := e.runJob(ctx, j)
 		switch {
 		case err == nil:
@@ -560,6 +611,8 @@ func (e *Engine) Run(ctx context.Context) (err error) {
 			e.mu.Lock()
 			e.queue = append([]job{j}, e.queue...)
 			e.mu.Unlock()
+		case e.cfg.Reconnect != nil && IsInstrumentFault(err):
+			e.lost(j, before, err)
 		default:
 			e.outputOff()
 			if e.cfg.PauseOnError {

@@ -183,6 +183,24 @@ func (gd *Guard) Shutdown() error {
 	return gd.Off()
 }
 
+// Replace puts g behind the guard in place of the generator it wrapped,
+// after a reconnect: g must come with its output off (a generator
+// driver turns it off when it connects). The guard forgets the old
+// amplitude, so the output cannot be enabled on g before an amplitude
+// has been set on it, and the first step is not ramped from a level g
+// never had. A guard that was shut down stays shut down. Whoever holds
+// the guard (the engine, the exit path's Off) reaches g from then on.
+func (gd *Guard) Replace(g Generator) error {
+	if g == nil {
+		return errors.New("guard: replace: a generator is required")
+	}
+	gd.mu.Lock()
+	defer gd.mu.Unlock()
+	gd.g = g
+	gd.on, gd.failed, gd.ampV = false, false, 0
+	return nil
+}
+
 // DrainErrors forwards to the wrapped generator's error queue when it
 // keeps one (see ErrorDrainer), so wrapping a generator does not hide
 // its instrument errors from the engine; otherwise it returns nil.
