@@ -147,7 +147,8 @@ type Model struct {
 	mErr     error
 	state    sweep.State
 	stateMsg string
-	closed   bool // the event stream ended
+	lost     lostInfo // the instrument fault being recovered from
+	closed   bool     // the event stream ended
 	cursor   int
 	active   int
 	follow   bool // the cursor follows the point being measured
@@ -188,6 +189,7 @@ func New(o Options) Model {
 		sess:   o.Session,
 		state:  o.State,
 		active: -1,
+		lost:   lostInfo{at: -1},
 		follow: true,
 		w:      80,
 		h:      24,
@@ -253,7 +255,7 @@ func (m Model) live() bool {
 		return false
 	}
 	switch m.state {
-	case sweep.Idle, sweep.Running, sweep.Paused, sweep.Refining:
+	case sweep.Idle, sweep.Running, sweep.Paused, sweep.Refining, sweep.Reconnecting:
 		return true
 	}
 	return false
@@ -262,7 +264,8 @@ func (m Model) live() bool {
 // updateKeys enables the bindings that apply now, so help tells the truth.
 func (m *Model) updateKeys() {
 	ctl := m.opt.Controller != nil && !m.closed
-	running := m.state == sweep.Running || m.state == sweep.Refining || m.state == sweep.Idle
+	// Pausing while reconnecting stops the tries; Resume starts them again.
+	running := m.state == sweep.Running || m.state == sweep.Refining || m.state == sweep.Idle || m.state == sweep.Reconnecting
 	m.keys.Pause.SetEnabled(ctl && (running || m.state == sweep.Paused))
 	if m.state == sweep.Paused {
 		m.keys.Pause.SetHelp("space", "resume")
@@ -344,6 +347,27 @@ func (m *Model) apply(ev sweep.Event) {
 		if e.State == sweep.Failed && e.Msg != "" {
 			m.setFlash("error: "+e.Msg, true)
 		}
+		if e.State == sweep.Reconnecting {
+			// The fault takes the second status line.
+			m.setFlash("", false)
+			if m.lost.fault == "" {
+				m.lost.fault = e.Msg
+			}
+		}
+	case sweep.InstrumentLost:
+		m.lost = lostInfo{at: e.Index, window: e.Window}
+		if e.Err != nil {
+			m.lost.fault = e.Err.Error()
+		}
+	case sweep.ReconnectFailed:
+		m.lost.tries, m.lost.next = e.Try, e.Retry
+		if e.Err != nil {
+			m.lost.lastErr = e.Err.Error()
+		}
+	case sweep.Reconnected:
+		m.lost = lostInfo{at: -1}
+		m.setFlash(fmt.Sprintf("reconnected after %v (%d tries): settings applied again, resuming at point %d (%s Hz)",
+			shortDuration(e.After), e.Tries, e.Index+1, formatHz(e.FreqHz)), false)
 	case sweep.ErrorEvent:
 		if e.Err != nil {
 			m.setFlash("error: "+e.Err.Error(), true)
@@ -634,6 +658,8 @@ func (m Model) stateText() string {
 		return "ERROR"
 	case sweep.Stopped:
 		return "STOPPED"
+	case sweep.Reconnecting:
+		return "NO ANSWER"
 	}
 	return fmt.Sprintf("state %d", int(m.state))
 }
@@ -799,14 +825,20 @@ func (m Model) statusInfo() statusInfo {
 		k = m.active + 1
 	}
 	in := statusInfo{
-		State: m.stateText(), Bad: m.state == sweep.Failed,
+		State: m.stateText(), Bad: m.state == sweep.Failed || m.state == sweep.Reconnecting,
 		K: k, N: n,
 		File: m.opt.SessionFile, ReadOnly: m.opt.Controller == nil,
 		Flash: m.flash, FlashBad: m.flashBad,
 		GenIDN: m.sess.Instruments.GeneratorIDN, DigIDN: m.sess.Instruments.DigitizerIDN,
 	}
-	if m.state == sweep.Failed || m.state == sweep.Stopped {
+	switch m.state {
+	case sweep.Failed, sweep.Stopped:
 		in.StateMsg = m.stateMsg
+	case sweep.Reconnecting:
+		in.Waiting, in.StateMsg = m.lost.describe()
+		if m.lost.at >= 0 {
+			in.K = m.lost.at + 1
+		}
 	}
 	if !m.started.IsZero() && !m.now.IsZero() {
 		in.HaveTime = true
@@ -817,4 +849,33 @@ func (m Model) statusInfo() statusInfo {
 		}
 	}
 	return in
+}
+
+// lostInfo is what the screen knows of an instrument fault while the
+// engine reconnects (sweep.InstrumentLost, sweep.ReconnectFailed).
+type lostInfo struct {
+	at      int    // the point it hit; −1: none
+	fault   string // the error, naming the command that went unanswered
+	window  time.Duration
+	tries   int // failed tries so far
+	next    time.Duration
+	lastErr string
+}
+
+// describe words the fault for the status lines: what the engine is
+// doing (first line, short) and the fault itself, then the give-up
+// window and the last try's error (second line, cut at the width).
+func (l lostInfo) describe() (doing, msg string) {
+	doing = "output off, reconnecting"
+	if l.tries > 0 {
+		doing += fmt.Sprintf(" (try %d failed, next in %v)", l.tries, shortDuration(l.next))
+	}
+	msg = l.fault
+	if l.window > 0 {
+		msg += fmt.Sprintf(" · gives up after %v", l.window)
+	}
+	if l.lastErr != "" {
+		msg += " · last try: " + l.lastErr
+	}
+	return doing, msg
 }

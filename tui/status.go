@@ -13,6 +13,7 @@ import (
 type statusInfo struct {
 	State    string // RUNNING, PAUSED, …
 	Bad      bool   // the state is an error
+	Waiting  string // what the engine does about a fault, after the state
 	K, N     int    // point k of N
 	HaveTime bool
 	Elapsed  time.Duration
@@ -49,7 +50,11 @@ func (m statusModel) View() string {
 	if in.Bad {
 		state = m.st.bad.Render(in.State)
 	}
-	parts := []string{state, fmt.Sprintf("point %d of %d", in.K, in.N)}
+	parts := []string{state}
+	if in.Waiting != "" {
+		parts = append(parts, m.st.warn.Render(in.Waiting))
+	}
+	parts = append(parts, fmt.Sprintf("point %d of %d", in.K, in.N))
 	if in.HaveTime {
 		parts = append(parts, "elapsed "+formatDuration(in.Elapsed))
 	}
@@ -81,4 +86,13 @@ func orDash(s string) string {
 		return "—"
 	}
 	return strings.TrimSpace(s)
+}
+
+// shortDuration rounds d for a message: to 10 ms below a second, to
+// 100 ms above (250ms, 1.5s, 2m0s).
+func shortDuration(d time.Duration) time.Duration {
+	if d < time.Second {
+		return d.Round(10 * time.Millisecond)
+	}
+	return d.Round(100 * time.Millisecond)
 }
