@@ -115,3 +115,83 @@ func (a Attempt) Tone(pointHz float64) float64 {
 func pointScore(p analysis.Point) float64 {
 	return attemptScore(Attempt{GainSigmaDB: p.GainSigmaDB, PhaseSigmaDeg: p.PhaseSigmaDeg})
 }
+
+// slopeSpanDec is the half-width, in decades, of the band around a
+// crossing over which crossingFreqSigmaRel fits the local slope: one plan
+// step at the default 10 points per decade, so the slope comes from the
+// response's shape rather than from the noise of points refinement put
+// close together (common practice: a derivative is taken over a baseline
+// wide against the scatter it divides).
+const slopeSpanDec = 0.1
+
+// crossingFreqSigmaRel returns the relative standard uncertainty σ(f)/f
+// of a crossing at f found on the curve pts (Session.Curve: sorted,
+// phase unwrapped), of the phase (phase true, degrees) or of the gain
+// (dB), and the indices lo, lo+1 in pts of the two points that bracket
+// it (lo < 0 when f is outside the curve).
+//
+//	σ(f)/f = σ_y / |dy/d ln f|
+//
+// where σ_y is the larger of the bracketing points' σ (a bound on the
+// interpolated value's, which lies between them) and the slope is the
+// weighted least-squares slope of y against ln f over the points within
+// slopeSpanDec of f (weights 1/σ²), less one standard uncertainty of that
+// slope, so a slope the scatter could fake gives a large σ (+Inf when the
+// slope is not resolved at all). A first-order propagation from the
+// local interpolant, as analysis.ComputeMargins does, divides by the
+// interpolant's own slope: between two points closer together than
+// their scatter that slope is noise and the uncertainty comes out too
+// small, which this estimate is not fooled by.
+func crossingFreqSigmaRel(pts []analysis.Point, f float64, phase bool) (rel float64, lo int) {
+	lo = -1
+	for i := 0; i+1 < len(pts); i++ {
+		if pts[i].FreqHz <= f && f <= pts[i+1].FreqHz {
+			lo = i
+			break
+		}
+	}
+	if lo < 0 || !(f > 0) {
+		return math.Inf(1), -1
+	}
+	val := func(p analysis.Point) (y, s float64) {
+		if phase {
+			return p.PhaseDeg, p.PhaseSigmaDeg
+		}
+		return p.GainDB, p.GainSigmaDB
+	}
+	_, s0 := val(pts[lo])
+	_, s1 := val(pts[lo+1])
+	sy := math.Max(s0, s1)
+	// Weighted least squares y = a + b·x, x = ln(f_j/f): b = Sxy/Sxx
+	// about the weighted means, var(b) = 1/Sxx.
+	span := slopeSpanDec * math.Ln10
+	var sw, swx, swy float64
+	type xy struct{ x, y, w float64 }
+	var use []xy
+	for j, p := range pts {
+		x := math.Log(p.FreqHz / f)
+		if math.Abs(x) > span && j != lo && j != lo+1 {
+			continue
+		}
+		y, s := val(p)
+		w := 1 / math.Max(s*s, 1e-18)
+		use = append(use, xy{x, y, w})
+		sw += w
+		swx += w * x
+		swy += w * y
+	}
+	mx, my := swx/sw, swy/sw
+	var sxx, sxy float64
+	for _, u := range use {
+		sxx += u.w * (u.x - mx) * (u.x - mx)
+		sxy += u.w * (u.x - mx) * (u.y - my)
+	}
+	if !(sxx > 0) {
+		return math.Inf(1), lo
+	}
+	slope := math.Abs(sxy/sxx) - 1/math.Sqrt(sxx)
+	if !(slope > 0) {
+		return math.Inf(1), lo
+	}
+	return sy / slope, lo
+}

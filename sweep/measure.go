@@ -47,6 +47,13 @@ const (
 	// refineFreqRel: refinement also aims at a crossing frequency known
 	// to 0.1% (one standard uncertainty).
 	refineFreqRel = 0.001
+	// refineNearMax bounds how far from a crossing (ln f) a point still
+	// counts as at it when the crossing's frequency is poorly known.
+	refineNearMax = 0.05
+	// refineMinGain: a re-measure must be able to cut a point's variance
+	// by at least this factor (more cycles, a larger injection) to be
+	// worth its time.
+	refineMinGain = 1.5
 )
 
 func (e *Engine) interrupted() bool {
@@ -127,73 +134,122 @@ func wrapNear(deg, ref float64) float64 {
 	return deg - 360*math.Round((deg-ref)/360)
 }
 
-// refineJobLocked proposes a point at (or a re-measure of the point
-// nearest) a crossing whose margin is not yet known well enough.
+// refineJobLocked proposes a point at (or a re-measure of a point
+// near) a crossing whose margin or frequency is not yet known well
+// enough: σ(PM) above RefinePMDeg, σ(GM) above RefineGMDB, or σ(f)/f
+// above refineFreqRel, where σ(f)/f is the larger of the analysis's
+// first-order figure and crossingFreqSigmaRel's (the bracketing points'
+// σ over a slope fitted across ±slopeSpanDec).
 func (e *Engine) refineJobLocked() (job, bool) {
 	m, err := e.sess.Margins()
 	if err != nil {
 		return job{}, false
 	}
+	curve := e.sess.Curve()
 	type target struct {
-		f    float64
-		need bool
-		grow float64 // variance ratio still to gain: (σ/target)²
+		f       float64
+		need    bool
+		grow    float64 // variance ratio still to gain: (σ/target)²
+		near    float64 // a point this close (ln f) counts as at the crossing
+		bracket []float64
+		phase   bool // the crossing is of the phase (else of the gain)
 	}
 	var ts []target
+	add := func(f, r float64, phase bool) {
+		rel, lo := crossingFreqSigmaRel(curve, f, phase)
+		r = math.Max(r, sq(rel/refineFreqRel))
+		t := target{f: f, need: r > 1, grow: r, phase: phase,
+			near: math.Max(refineNearRel, math.Min(rel, refineNearMax))}
+		if lo >= 0 {
+			t.bracket = []float64{curve[lo].FreqHz, curve[lo+1].FreqHz}
+		}
+		ts = append(ts, t)
+	}
 	for _, g := range m.GainCrossovers {
-		r := math.Max(sq(g.SigmaDeg/e.set.RefinePMDeg), sq(g.SigmaFreqHz/(refineFreqRel*g.FreqHz)))
-		ts = append(ts, target{g.FreqHz, r > 1, r})
+		add(g.FreqHz, math.Max(sq(g.SigmaDeg/e.set.RefinePMDeg), sq(g.SigmaFreqHz/(refineFreqRel*g.FreqHz))), false)
 	}
 	for _, p := range m.PhaseCrossovers {
-		r := math.Max(sq(p.SigmaDB/e.set.RefineGMDB), sq(p.SigmaFreqHz/(refineFreqRel*p.FreqHz)))
-		ts = append(ts, target{p.FreqHz, r > 1, r})
+		add(p.FreqHz, math.Max(sq(p.SigmaDB/e.set.RefineGMDB), sq(p.SigmaFreqHz/(refineFreqRel*p.FreqHz))), true)
+	}
+	// tone is the frequency point i injected.
+	tone := func(i int) float64 {
+		f := e.sess.Points[i].FreqHz
+		if a, ok := e.sess.Chosen(i); ok {
+			f = a.Tone(f)
+		}
+		return f
 	}
 	// First put a point at every crossing that has none near it (the
 	// interpolation error is not in the uncertainty), then re-measure.
+	// "Near" is at least refineNearRel and at least the crossing's own
+	// frequency uncertainty: a point closer to an existing one than the
+	// scatter can place the crossing adds noise-made crossings, not
+	// knowledge; the bracketing points are measured longer instead.
 	for pass := 0; pass < 2; pass++ {
 		for _, t := range ts {
 			if !(t.f > 0) || !finite(t.f) {
 				continue
 			}
 			near, dist := -1, math.Inf(1)
-			for i, p := range e.sess.Points {
-				f := p.FreqHz
-				if a, ok := e.sess.Chosen(i); ok {
-					f = a.Tone(f)
-				}
-				if d := math.Abs(math.Log(f / t.f)); d < dist {
+			for i := range e.sess.Points {
+				if d := math.Abs(math.Log(tone(i) / t.f)); d < dist {
 					near, dist = i, d
 				}
 			}
 			if near < 0 {
 				continue
 			}
-			if pass == 0 && dist > refineNearRel {
+			if pass == 0 && dist > t.near {
 				key := math.Round(math.Log(t.f)/refineNearRel) * refineNearRel
 				if e.refineTry[key] >= refineTriesPerTarget {
 					continue
 				}
 				e.refineTry[key]++
 				// Measure the new point as well as the crossing needs.
-				cx := 2
+				j := job{freq: t.f, insert: true, reason: "refine", cyclesX: 2, attempts: 1}
 				if a, ok := e.sess.Chosen(near); ok && t.need {
-					grow := math.Min(math.Max(2*t.grow, 2), 1000)
-					cx = max(cx, int(math.Ceil(a.Cycles*grow/float64(e.set.Cycles))))
+					e.refineEffortLocked(&j, a, math.Min(math.Max(2*t.grow, 2), 1000))
 				}
-				return job{freq: t.f, insert: true, reason: "refine", cyclesX: cx, attempts: 1}, true
+				return j, true
 			}
-			if pass == 1 && dist <= refineNearRel && t.need {
-				// Re-measure the noisiest of the point at the crossing and its
-				// two neighbours, with the cycles its uncertainty asks for.
-				best, bestScore := -1, 0.0
-				for _, i := range []int{near - 1, near, near + 1} {
-					a, ok := e.sess.Chosen(i)
-					if !ok || e.refineTry[-e.sess.Points[i].FreqHz] >= refineTriesPerTarget {
-						continue
+			if pass == 1 && dist <= t.near && t.need {
+				// Re-measure the noisier of the two points that bracket the
+				// crossing (its σ is theirs), else the noisiest of the point
+				// at the crossing and its two neighbours, with the cycles the
+				// crossing's uncertainty asks for. A point whose chosen
+				// attempt already has (nearly) the longest record and the
+				// largest injection allowed is left: a repeat would not
+				// lower its σ.
+				pick := func(cands []int, score func(Attempt) float64) int {
+					best, bestScore := -1, 0.0
+					for _, i := range cands {
+						a, ok := e.sess.Chosen(i)
+						if !ok || e.refineTry[-e.sess.Points[i].FreqHz] >= refineTriesPerTarget ||
+							sq(e.refineAmpCapLocked())*float64(e.recordCycleCap(e.set, tone(i))) < refineMinGain*sq(a.AmpVpp)*a.Cycles {
+							continue
+						}
+						if sc := score(a); best < 0 || sc > bestScore {
+							best, bestScore = i, sc
+						}
 					}
-					if sc := attemptScore(a); best < 0 || sc > bestScore {
-						best, bestScore = i, sc
+					return best
+				}
+				var br []int
+				for i := range e.sess.Points {
+					for _, f := range t.bracket {
+						if tone(i) == f {
+							br = append(br, i)
+						}
 					}
+				}
+				best := pick(br, func(a Attempt) float64 {
+					if t.phase {
+						return a.PhaseSigmaDeg
+					}
+					return a.GainSigmaDB
+				})
+				if best < 0 {
+					best = pick([]int{near - 1, near, near + 1}, attemptScore)
 				}
 				if best < 0 {
 					continue
@@ -203,13 +259,79 @@ func (e *Engine) refineJobLocked() (job, bool) {
 				e.refineTry[-p.FreqHz]++
 				// The crossing's uncertainty comes from the points around it:
 				// give this one the variance ratio the crossing still lacks.
-				grow := math.Min(math.Max(2*t.grow, 2), 1000)
-				cyc := int(math.Ceil(a.Cycles * grow / float64(e.set.Cycles)))
-				return job{freq: p.FreqHz, reason: "refine", cyclesX: max(cyc, 2), attempts: 1}, true
+				j := job{freq: p.FreqHz, reason: "refine", cyclesX: 2, attempts: 1}
+				e.refineEffortLocked(&j, a, math.Min(math.Max(2*t.grow, 2), 1000))
+				return j, true
 			}
 		}
 	}
 	return job{}, false
+}
+
+// refineEffortLocked sets the cycles, and when they do not suffice the
+// amplitude, of refinement job j so its point's variance falls by grow
+// from attempt a's. The phase and gain variances of a record fall as
+// 1/(A²·N) (A the injection, N the samples: Kay's bound, see analysis),
+// so the effort a.AmpVpp²·a.Cycles·grow is bought first with cycles, at
+// the sweep's own amplitude; when the longest record (recordCycleCap:
+// maxRecordS, the digitizer's points) cannot hold them, the injection is
+// raised for this one attempt by the square root of the shortfall, up to
+// refineAmpCapLocked (MaxAmpVpp, below any level that showed harmonics),
+// and the job carries it as an override of the amplitude alone. The
+// Guard still enforces the cap and ramps the step up.
+func (e *Engine) refineEffortLocked(j *job, a Attempt, grow float64) {
+	set := e.set
+	amp := set.AmplitudeAt(j.freq)
+	if set.AutoAmp && e.autoAmp > 0 {
+		amp = clampAmp(e.autoAmp, set.MaxAmpVpp)
+	}
+	effort := sq(a.AmpVpp) * math.Max(a.Cycles, 1) * grow
+	if !(effort > 0) || !finite(effort) {
+		return
+	}
+	capC := float64(e.recordCycleCap(set, j.freq))
+	cyc := effort / sq(amp)
+	if top := e.refineAmpCapLocked(); cyc > capC && top > amp {
+		raised := math.Min(math.Sqrt(effort/capC), top)
+		cyc = effort / sq(raised)
+		ov := copySettings(set)
+		ov.AmpVpp, ov.AmpProfile, ov.AutoAmp = raised, nil, false
+		j.override = &ov
+	}
+	j.cyclesX = max(j.cyclesX, int(math.Ceil(math.Min(cyc, capC)/float64(set.Cycles))))
+}
+
+// refineAmpCapLocked is the largest injection refinement may use:
+// MaxAmpVpp, and below half of the smallest amplitude at which an attempt
+// of this sweep showed harmonics above MaxHarmonicDB (or the level
+// control's learned ceiling), so a raised level stays in the linear
+// range the sweep has seen.
+func (e *Engine) refineAmpCapLocked() float64 {
+	top := e.set.MaxAmpVpp
+	if e.ampCeiling > 0 {
+		top = math.Min(top, e.ampCeiling)
+	}
+	for _, p := range e.sess.Points {
+		for _, a := range p.Attempts {
+			if strings.HasPrefix(a.Problem, "harmonics") {
+				top = math.Min(top, a.AmpVpp/2)
+			}
+		}
+	}
+	return top
+}
+
+// recordCycleCap is the most cycles one record at tone f can hold:
+// cycleCap, and the digitizer's longest record at MinPerCycle samples
+// per cycle.
+func (e *Engine) recordCycleCap(set Settings, f float64) int {
+	return max(1, min(cycleCap(set, f), e.cfg.MaxPoints/max(set.MinPerCycle, 1)))
+}
+
+// cycleCap is the most cycles a record at tone f may take: maxCycles,
+// and maxRecordS of signal, but never fewer than the plan's Cycles.
+func cycleCap(set Settings, f float64) int {
+	return min(maxCycles, max(set.Cycles, int(maxRecordS*f)))
 }
 
 // runJob measures one point: up to the allowed attempts, each with more
@@ -282,7 +404,7 @@ func (e *Engine) runJob(ctx context.Context, j job) (err error) {
 	}
 	cycles := set.Cycles * cx
 	for k := 0; k < maxA; k++ {
-		cycles = min(cycles, maxCycles, max(set.Cycles, int(maxRecordS*j.freq)))
+		cycles = min(cycles, cycleCap(set, j.freq))
 		e.mu.Lock()
 		idx = e.findLocked(j.freq)
 		n := len(e.sess.Points[idx].Attempts)

@@ -14,6 +14,25 @@ import (
 // on switching converters: a small injection (a few tens of millivolts)
 // with a hard cap of 0.1 Vpp, ten points per decade, ten cycles of
 // settling and ten cycles per record.
+//
+// Refinement (RefineBudget extra jobs after the plan) works on every gain
+// and phase crossover until σ(PM) ≤ RefinePMDeg, σ(GM) ≤ RefineGMDB and
+// the crossing's frequency is known to 0.1% (σ(f)/f). σ(f)/f is the
+// larger of the first-order figure of analysis.ComputeMargins and the
+// bracketing points' σ over the slope fitted across ±0.1 decade, so
+// points crowded closer than their own scatter cannot make it look
+// smaller than it is. Refinement first puts a point at a crossing that
+// has none within the larger of 0.3% and its own σ(f)/f, then re-measures the
+// noisier of the two points that bracket it with the cycles the
+// variance still lacks. Where the longest record (0.25 s, the
+// digitizer's points at MinPerCycle) cannot hold them, as near a phase
+// crossover where the return tone is 30 dB or more below the injection,
+// that one attempt raises the injection by the square root of the
+// shortfall, up to MaxAmpVpp (and below half of any level that showed
+// harmonics above MaxHarmonicDB in this sweep): the plan's points keep
+// AmpVpp, the Guard ramps the step and enforces the cap, and the attempt
+// records the amplitude it used. A user who wants no level above AmpVpp
+// sets MaxAmpVpp to it.
 const (
 	DefaultStartHz       = 100.0
 	DefaultStopHz        = 100e3
