@@ -213,7 +213,7 @@ func checkMargins(t *testing.T, m analysis.Margins, truth sim.TrueMargins) {
 		if d := math.Abs(g.PhaseMarginDeg - *truth.PhaseMarginDeg); d > acceptPMDeg {
 			t.Errorf("PM %.2f°, model %.2f°", g.PhaseMarginDeg, *truth.PhaseMarginDeg)
 		}
-		t.Logf("crossover %.4g Hz (model %.4g), PM %.2f° ± %.2f (model %.2f°)", g.FreqHz, *truth.CrossoverHz, g.PhaseMarginDeg, g.SigmaDeg, *truth.PhaseMarginDeg)
+		t.Logf("crossover %.5g Hz ± %.2f%% (model %.5g, off %+.3f%%), PM %.2f° ± %.2f (model %.2f°)", g.FreqHz, 100*g.SigmaFreqHz/g.FreqHz, *truth.CrossoverHz, 100*(g.FreqHz / *truth.CrossoverHz - 1), g.PhaseMarginDeg, g.SigmaDeg, *truth.PhaseMarginDeg)
 	}
 	if truth.PhaseCrossoverHz == nil {
 		if m.WorstGM >= 0 {
@@ -229,7 +229,7 @@ func checkMargins(t *testing.T, m analysis.Margins, truth sim.TrueMargins) {
 		if d := math.Abs(p.GainMarginDB - *truth.GainMarginDB); d > acceptGMDB {
 			t.Errorf("GM %.2f dB, model %.2f dB", p.GainMarginDB, *truth.GainMarginDB)
 		}
-		t.Logf("phase crossover %.4g Hz (model %.4g), GM %.2f dB ± %.2f (model %.2f dB)", p.FreqHz, *truth.PhaseCrossoverHz, p.GainMarginDB, p.SigmaDB, *truth.GainMarginDB)
+		t.Logf("phase crossover %.5g Hz ± %.2f%% (model %.5g, off %+.3f%%), GM %.2f dB ± %.2f (model %.2f dB)", p.FreqHz, 100*p.SigmaFreqHz/p.FreqHz, *truth.PhaseCrossoverHz, 100*(p.FreqHz / *truth.PhaseCrossoverHz - 1), p.GainMarginDB, p.SigmaDB, *truth.GainMarginDB)
 	}
 }
 

@@ -225,7 +225,7 @@ func (e *Engine) refineJobLocked() (job, bool) {
 					for _, i := range cands {
 						a, ok := e.sess.Chosen(i)
 						if !ok || e.refineTry[-e.sess.Points[i].FreqHz] >= refineTriesPerTarget ||
-							sq(e.refineAmpCapLocked())*float64(e.recordCycleCap(e.set, tone(i))) < refineMinGain*sq(a.AmpVpp)*a.Cycles {
+							sq(math.Max(e.refineAmpTopLocked(a), a.AmpVpp))*float64(e.recordCycleCap(e.set, tone(i))) < refineMinGain*sq(a.AmpVpp)*a.Cycles {
 							continue
 						}
 						if sc := score(a); best < 0 || sc > bestScore {
@@ -276,9 +276,9 @@ func (e *Engine) refineJobLocked() (job, bool) {
 // the sweep's own amplitude; when the longest record (recordCycleCap:
 // maxRecordS, the digitizer's points) cannot hold them, the injection is
 // raised for this one attempt by the square root of the shortfall, up to
-// refineAmpCapLocked (MaxAmpVpp, below any level that showed harmonics),
-// and the job carries it as an override of the amplitude alone. The
-// Guard still enforces the cap and ramps the step up.
+// refineAmpTopLocked, and the job carries it as an override of the
+// amplitude alone. The Guard still enforces the cap and ramps the step
+// up.
 func (e *Engine) refineEffortLocked(j *job, a Attempt, grow float64) {
 	set := e.set
 	amp := set.AmplitudeAt(j.freq)
@@ -291,7 +291,7 @@ func (e *Engine) refineEffortLocked(j *job, a Attempt, grow float64) {
 	}
 	capC := float64(e.recordCycleCap(set, j.freq))
 	cyc := effort / sq(amp)
-	if top := e.refineAmpCapLocked(); cyc > capC && top > amp {
+	if top := e.refineAmpTopLocked(a); cyc > capC && top > amp {
 		raised := math.Min(math.Sqrt(effort/capC), top)
 		cyc = effort / sq(raised)
 		ov := copySettings(set)
@@ -317,6 +317,24 @@ func (e *Engine) refineAmpCapLocked() float64 {
 				top = math.Min(top, a.AmpVpp/2)
 			}
 		}
+	}
+	return top
+}
+
+// refineAmpTopLocked is the largest injection a refinement re-measure of
+// the point attempt a measured may use: refineAmpCapLocked, and no more
+// than keeps both probed nodes' tones within MaxAmpVpp peak-to-peak
+// (a's amplitude scaled by MaxAmpVpp over a's larger tone, 2·peak). The
+// nodes swing by v_z/|1+L|: near a phase crossover, where |L| ≪ 1, about
+// the injection itself, so the raise is nearly the full cap; near a gain
+// crossover with a thin margin |1+L| is small and the nodes swing several
+// times the injection, which then stays near the sweep's own level
+// (common practice: keep the disturbance small where the loop amplifies
+// it).
+func (e *Engine) refineAmpTopLocked(a Attempt) float64 {
+	top := e.refineAmpCapLocked()
+	if pk := math.Max(a.Ch1.AmpPeakV, a.Ch2.AmpPeakV); pk > 0 && a.AmpVpp > 0 {
+		top = math.Min(top, a.AmpVpp*e.set.MaxAmpVpp/(2*pk))
 	}
 	return top
 }

@@ -87,6 +87,11 @@ func TestRefinementNarrowsCrossingFrequency(t *testing.T) {
 	for _, pt := range s.Points {
 		for _, a := range pt.Attempts {
 			raised = raised || (a.Reason == "refine" && a.AmpVpp > s.Settings.AmpVpp)
+			// Both nodes' tones stay within the cap (2·peak ≤ MaxAmpVpp),
+			// with 1% for the fit's scatter.
+			if pk := math.Max(a.Ch1.AmpPeakV, a.Ch2.AmpPeakV); a.AmpVpp > s.Settings.AmpVpp && 2*pk > 1.01*s.Settings.MaxAmpVpp {
+				t.Errorf("%g Hz at %g Vpp: a node swings %g Vpp, above the %g Vpp cap", a.Tone(pt.FreqHz), a.AmpVpp, 2*pk, s.Settings.MaxAmpVpp)
+			}
 		}
 	}
 	if !raised {

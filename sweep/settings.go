@@ -28,8 +28,11 @@ import (
 // digitizer's points at MinPerCycle) cannot hold them, as near a phase
 // crossover where the return tone is 30 dB or more below the injection,
 // that one attempt raises the injection by the square root of the
-// shortfall, up to MaxAmpVpp (and below half of any level that showed
-// harmonics above MaxHarmonicDB in this sweep): the plan's points keep
+// shortfall, up to MaxAmpVpp, no further than keeps both probed nodes'
+// tones within MaxAmpVpp peak-to-peak (near a gain crossover with a thin
+// margin the nodes swing several times the injection, so it stays near
+// AmpVpp there), and below half of any level that showed harmonics above
+// MaxHarmonicDB in this sweep: the plan's points keep
 // AmpVpp, the Guard ramps the step and enforces the cap, and the attempt
 // records the amplitude it used. A user who wants no level above AmpVpp
 // sets MaxAmpVpp to it.
