@@ -273,7 +273,9 @@ func TestSafetyEndToEnd(t *testing.T) {
 		t.Run(fc.name, func(t *testing.T) {
 			srv := startBench(t)
 			out := filepath.Join(t.TempDir(), "s.json")
-			r := startSweepProc(t, bin, srv, append([]string{"--out", out, "--timeout", fc.timeout}, safetyPlan...)...)
+			// --reconnect-window 0: the path without reconnection
+			// (reconnect_e2e_test.go covers reconnecting in the run).
+			r := startSweepProc(t, bin, srv, append([]string{"--out", out, "--timeout", fc.timeout, "--reconnect-window", "0"}, safetyPlan...)...)
 			if !r.waitLine(point3, 20*time.Second) {
 				t.Fatalf("no progress to point 3; stderr:\n%s", r.stderr())
 			}

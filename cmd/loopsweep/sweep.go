@@ -84,6 +84,7 @@ type sweepFlags struct {
 	pmTarget, gmTarget          float64
 	headless, jsonOut           bool
 	timeout                     time.Duration
+	reconnectWindow             time.Duration
 }
 
 func runSweep(args []string, stdout, stderr io.Writer) error {
@@ -124,11 +125,16 @@ func runSweep(args []string, stdout, stderr io.Writer) error {
 	fs.Float64Var(&f.gmTarget, "gm-target", tui.DefaultGMTargetDB, "gain margin target for the bench screen's verdict, dB (common practice: 6–10 dB)")
 	fs.BoolVar(&f.jsonOut, "json", false, "print the summary as JSON")
 	fs.DurationVar(&f.timeout, "timeout", 5*time.Second, "instrument reply timeout")
+	fs.DurationVar(&f.reconnectWindow, "reconnect-window", defaultReconnectWindow,
+		"when an instrument stops answering (timeout, lost link): turn the output off and keep reconnecting for this long, then resume at the failed point or give up; a duration such as 30s or 2m (0: fail at once)")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
 	if fs.NArg() > 0 {
 		return badInput("unexpected argument %q", fs.Arg(0))
+	}
+	if f.reconnectWindow < 0 {
+		return badInput("--reconnect-window %v: want a duration of 0 or more (0 turns reconnecting off)", f.reconnectWindow)
 	}
 	set := map[string]bool{}
 	fs.Visit(func(fl *flag.Flag) { set[fl.Name] = true })
@@ -211,7 +217,9 @@ func runSweep(args []string, stdout, stderr io.Writer) error {
 	// engine, whatever it does; the safety turns the output off and saves
 	// the session on every exit: return, signal (SIGINT, SIGTERM,
 	// SIGHUP) or panic. Its deferred Done runs before b.Close.
-	guard, err := sweep.NewGuard(b.gen, s.MaxAmpVpp, nil)
+	// Behind it, an off that gets no answer is sent over a new link too
+	// (offFallback), so a fault mid-sweep leaves the output off at once.
+	guard, err := sweep.NewGuard(offFallback{b.gen, b.genAddr, b.genProf, f.timeout}, s.MaxAmpVpp, nil)
 	if err != nil {
 		return badInput("--max-amp: %v", err)
 	}
@@ -231,6 +239,15 @@ func runSweep(args []string, stdout, stderr io.Writer) error {
 	defer sf.Done()
 	ctx := sf.Context()
 
+	// An instrument that stops answering mid-sweep is opened again from
+	// the same addresses and profiles, within --reconnect-window.
+	var reconnect func(context.Context) (sweep.Generator, sweep.Digitizer, error)
+	if f.reconnectWindow > 0 {
+		rl := &relinker{b: b, genAddr: b.genAddr, digAddr: b.info.DigitizerAddr, genProfile: f.genProfile, digProfile: f.digProfile,
+			timeout: f.timeout, guard: guard, want: b.info}
+		reconnect = rl.Reconnect
+	}
+
 	tui := runTUI != nil && !f.headless && isTerminal(os.Stdout)
 	events := make(chan sweep.Event, 64)
 	eng, err := sweep.New(sweep.Config{
@@ -249,6 +266,9 @@ func runSweep(args []string, stdout, stderr io.Writer) error {
 		PauseOnError:   tui,
 		Linger:         tui,
 		Events:         events,
+
+		Reconnect:       reconnect,
+		ReconnectWindow: f.reconnectWindow,
 	})
 	if err != nil {
 		return settingError(err)
@@ -293,6 +313,9 @@ func finish(eng *sweep.Engine, rerr error, f sweepFlags, stdout, stderr io.Write
 	if rerr != nil {
 		if errors.Is(rerr, context.Canceled) {
 			return fmt.Errorf("interrupted: output off, session saved to %s (continue with --resume %s)", f.out, f.out)
+		}
+		if sweep.IsInstrumentFault(rerr) {
+			return fmt.Errorf("sweep failed (output off, %d points saved to %s; continue with --resume %s): %w", countMeasured(&snap), f.out, f.out, rerr)
 		}
 		return fmt.Errorf("sweep failed (output off, %d points saved to %s): %w", countMeasured(&snap), f.out, rerr)
 	}
@@ -349,7 +372,11 @@ func progress(events <-chan sweep.Event, eng *sweep.Engine, w io.Writer) {
 	// goroutine panic after N measured points, so the panic exit path
 	// (output off, session kept) is exercised on the real binary.
 	panicAfter, _ := strconv.Atoi(os.Getenv("LOOPSWEEP_TEST_PANIC_AFTER"))
+	nPoints := func() int { s := eng.Snapshot(); return len(s.Points) }
 	for ev := range events {
+		if reportReconnect(w, ev, nPoints) {
+			continue
+		}
 		switch ev := ev.(type) {
 		case sweep.PointStarted:
 			snap := eng.Snapshot()
@@ -514,6 +541,7 @@ type bench struct {
 	genAddr   string  // for forceOff
 	genProf   *instr.Profile
 	closers   []func() error
+	links     links // the instrument links (a reconnect replaces them), closed by one of closers
 }
 
 // Close closes the connections (and the simulator) in reverse order.
@@ -640,9 +668,14 @@ func openBench(f sweepFlags) (*bench, error) {
 		b.simFsw = srv.Scenario().SwitchingHz
 		genAddr, digAddr = srv.GenAddr(), srv.DigAddr()
 	}
+	base := len(b.closers)
 	if err := openInstruments(b, genAddr, digAddr, f.genProfile, f.digProfile, f.timeout); err != nil {
 		b.Close()
 		return nil, err
 	}
+	// openInstruments registers only the links' closers: keep them
+	// apart, so a reconnect (relinker) can close and replace them.
+	b.links.swap(append([]func() error(nil), b.closers[base:]...))
+	b.closers = append(b.closers[:base:base], b.links.Close)
 	return b, nil
 }
