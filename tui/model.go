@@ -366,8 +366,12 @@ func (m *Model) apply(ev sweep.Event) {
 		}
 	case sweep.Reconnected:
 		m.lost = lostInfo{at: -1}
-		m.setFlash(fmt.Sprintf("reconnected after %v (%d tries): settings applied again, resuming at point %d (%s Hz)",
-			shortDuration(e.After), e.Tries, e.Index+1, formatHz(e.FreqHz)), false)
+		tries := "tries"
+		if e.Tries == 1 {
+			tries = "try"
+		}
+		m.setFlash(fmt.Sprintf("reconnected after %v (%d %s): settings applied again, resuming at point %d (%s Hz)",
+			shortDuration(e.After), e.Tries, tries, e.Index+1, formatHz(e.FreqHz)), false)
 	case sweep.ErrorEvent:
 		if e.Err != nil {
 			m.setFlash("error: "+e.Err.Error(), true)
