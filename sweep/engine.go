@@ -119,29 +119,34 @@ type Engine struct {
 	checked    map[float64]bool // plan points already judged against their neighbours
 	refineUsed int
 	refineTry  map[float64]int
+	// windowStart is when the reconnection window in force began; zero:
+	// none. A fault after a reconnection with no attempt measured since
+	// keeps it (reconnect.go).
+	windowStart time.Time
 
 	saveMu sync.Mutex
 
 	// Run's goroutine only.
-	outputOn   bool
-	autoAmp    float64 // the level control's amplitude for the next point
-	ampCeiling float64 // above this the response was found nonlinear; 0: none
-	freqNow    float64
-	ampNow     float64
-	chans      [2]instr.ChannelSettings
-	dcKnown    bool
-	ranged     bool       // the input windows were set from a reading (autorange)
-	fault      error      // the instrument fault being recovered from; nil: none
-	faultAt    time.Time  // when it happened
-	faultFreq  float64    // the point it hit
-	unsaved    bool       // the last point is not on disk yet: the next job saves it (runJob)
-	saveDone   chan error // that save, running while the next point settles
-	lastWant   instr.CaptureSettings
-	lastGot    instr.CaptureSettings
-	dtCache    map[float64]float64 // asked sample interval → the digitizer's
-	haveGot    bool
-	buf1       []float64
-	buf2       []float64
+	outputOn            bool
+	autoAmp             float64 // the level control's amplitude for the next point
+	ampCeiling          float64 // above this the response was found nonlinear; 0: none
+	freqNow             float64
+	ampNow              float64
+	chans               [2]instr.ChannelSettings
+	dcKnown             bool
+	ranged              bool       // the input windows were set from a reading (autorange)
+	fault               error      // the instrument fault being recovered from; nil: none
+	faultAt             time.Time  // when it happened
+	faultFreq           float64    // the point it hit
+	attemptsAtReconnect int        // attempts in the session at the last reconnection; −1: none
+	unsaved             bool       // the last point is not on disk yet: the next job saves it (runJob)
+	saveDone            chan error // that save, running while the next point settles
+	lastWant            instr.CaptureSettings
+	lastGot             instr.CaptureSettings
+	dtCache             map[float64]float64 // asked sample interval → the digitizer's
+	haveGot             bool
+	buf1                []float64
+	buf2                []float64
 }
 
 // job is one unit of work: measure the point at freq (looked up when the
@@ -199,6 +204,8 @@ func New(cfg Config) (*Engine, error) {
 		checked:   map[float64]bool{},
 		refineTry: map[float64]int{},
 		dtCache:   map[float64]float64{},
+
+		attemptsAtReconnect: -1,
 	}
 	now := cfg.Now()
 	if cfg.Session != nil {
@@ -314,6 +321,7 @@ func (e *Engine) Pause() {
 func (e *Engine) Resume() {
 	e.mu.Lock()
 	e.paused = false
+	e.windowStart = time.Time{} // a reconnection after Resume has a new window
 	e.mu.Unlock()
 	e.signal()
 }

@@ -77,6 +77,13 @@ func (e *Engine) lost(j job, before int, err error) {
 	if rest, ok := e.restOfJobLocked(j, before, idx); ok {
 		e.queue = append([]job{rest}, e.queue...)
 	}
+	if e.totalAttemptsLocked() != e.attemptsAtReconnect {
+		// Progress since the last reconnection (or none yet): a new
+		// window. Otherwise the instruments came back but failed again
+		// before measuring anything, and the window goes on, so a bench
+		// that connects but never measures cannot hold the sweep forever.
+		e.windowStart = time.Time{}
+	}
 	e.mu.Unlock()
 	e.fault, e.faultAt, e.faultFreq = err, e.cfg.Now(), j.freq
 	e.unsaved = false
@@ -126,6 +133,14 @@ func (e *Engine) restOfJobLocked(j job, before, idx int) (job, bool) {
 	return r, true
 }
 
+func (e *Engine) totalAttemptsLocked() int {
+	n := 0
+	for _, p := range e.sess.Points {
+		n += len(p.Attempts)
+	}
+	return n
+}
+
 // beginStep registers a cancellable step under ctx for Pause and Stop to
 // cut short; ok is false when one of them came first.
 func (e *Engine) beginStep(ctx context.Context) (step context.Context, end func(), ok bool) {
@@ -147,7 +162,8 @@ func (e *Engine) beginStep(ctx context.Context) (step context.Context, end func(
 // reconnect recovers from e.fault: it calls Config.Reconnect until a try
 // succeeds, waiting ReconnectBackoff after the first failure and twice
 // as long after each further one (at most MaxReconnectBackoff), for at
-// most ReconnectWindow from now. Pause, Stop and ctx interrupt it
+// most ReconnectWindow from the window's start: now, or the fault before
+// this one when no attempt was measured in between. Pause, Stop and ctx interrupt it
 // (errInterrupted; the fault stays, so Resume starts a new window).
 // After the window it returns an error naming the fault, the tries and
 // the last try's error. On success the engine forgets what it believed
@@ -155,8 +171,17 @@ func (e *Engine) beginStep(ctx context.Context) (step context.Context, end func(
 // the frequency, then the output, and configures the digitizer afresh.
 func (e *Engine) reconnect(ctx context.Context) error {
 	window := e.cfg.ReconnectWindow
-	deadline := e.cfg.Now().Add(window)
-	e.setState(Reconnecting, fmt.Sprintf("%v; output off, reconnecting for up to %v", e.fault, window))
+	now := e.cfg.Now()
+	e.mu.Lock()
+	if e.windowStart.IsZero() {
+		e.windowStart = now
+	}
+	deadline := e.windowStart.Add(window)
+	e.mu.Unlock()
+	if !now.Before(deadline) {
+		return fmt.Errorf("gave up reconnecting after %v: the instruments answered again but failed again before any attempt was measured: %w", window, e.fault)
+	}
+	e.setState(Reconnecting, fmt.Sprintf("%v; output off, reconnecting for up to %v", e.fault, deadline.Sub(now).Round(time.Second)))
 	wait := e.cfg.ReconnectBackoff
 	for try := 1; ; try++ {
 		step, end, ok := e.beginStep(ctx)
@@ -173,6 +198,7 @@ func (e *Engine) reconnect(ctx context.Context) error {
 			e.forgetInstruments()
 			e.mu.Lock()
 			idx := e.findLocked(e.faultFreq)
+			e.attemptsAtReconnect = e.totalAttemptsLocked()
 			e.mu.Unlock()
 			e.emit(Reconnected{Tries: try, After: e.cfg.Now().Sub(e.faultAt), Index: idx, FreqHz: e.faultFreq})
 			e.fault = nil

@@ -581,3 +581,48 @@ func TestReconnectThroughGuard(t *testing.T) {
 		t.Error("output on after Run")
 	}
 }
+
+// TestReconnectRepeatedFaultKeepsWindow: a bench that connects again at
+// once but stops answering at the first capture after every
+// reconnection. No attempt is ever measured after the first fault, so
+// the window runs from that fault and is not renewed by each
+// reconnection: Run fails once it has passed (here 1 s of the fake
+// clock, which the settling waits advance), instead of cycling forever.
+func TestReconnectRepeatedFaultKeepsWindow(t *testing.T) {
+	r, h, rc := reconnectRig(t, 7, 0)
+	r.cfg.ReconnectWindow = time.Second
+	var faultAt time.Time
+	rc.onTry = func(try int) {
+		if try == 1 {
+			faultAt = r.clk.Now()
+		}
+		// The next capture, the first after this reconnection, hangs.
+		h.mu.Lock()
+		h.hangAt = h.captures + 1
+		h.mu.Unlock()
+	}
+	e, err := New(r.cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	done := make(chan error, 1)
+	go func() { done <- e.Run(context.Background()) }()
+	select {
+	case err = <-done:
+	case <-time.After(20 * time.Second):
+		e.Stop()
+		t.Fatalf("still running after 20 s and %d reconnections: the window is renewed by every reconnection", rc.tries)
+	}
+	if err == nil || !strings.Contains(err.Error(), "gave up reconnecting after 1s") || !strings.Contains(err.Error(), "before any attempt was measured") {
+		t.Fatalf("Run = %v, want the give-up of a bench that fails again at once", err)
+	}
+	if elapsed := r.clk.Now().Sub(faultAt); elapsed < time.Second || rc.tries < 2 {
+		t.Errorf("gave up %v after the first fault, after %d reconnections; want at least the 1 s window and several", elapsed, rc.tries)
+	}
+	if n := countMeasured(e.Snapshot()); n != 3 {
+		t.Errorf("%d points measured, want the 3 before the fault", n)
+	}
+	if r.bench.Output() {
+		t.Error("output on after giving up")
+	}
+}
