@@ -52,7 +52,10 @@ func closeAll(closers []func() error) error {
 // profiles, exactly as the sweep began (openInstruments: connect,
 // *IDN?, the profile's setup, the generator's output off and, where the
 // profile checks them, the error queues cleared), checks that each
-// answers with the identity it had at the start, and puts the new
+// answers with the identity it had at the start (after that setup,
+// which openInstruments runs together with *IDN?: an instrument that
+// is not the one the sweep began with is closed again with its output
+// off, and the try fails), and puts the new
 // generator behind the guard (Guard.Replace), so the exit path's off and
 // the amplitude cap apply to it.
 type relinker struct {
@@ -79,9 +82,9 @@ func (r *relinker) Reconnect(ctx context.Context) (sweep.Generator, sweep.Digiti
 		var ue *usageError
 		if errors.As(err, &ue) {
 			// openInstruments marks its errors as bad input (exit
-			// status 2) for the start of a sweep; here each is one
-			// failed try.
-			err = ue.err
+			// status 2) and names the flag ("--gen ADDR: ...") for the
+			// start of a sweep; here each is one failed try.
+			err = errors.New(strings.TrimPrefix(ue.err.Error(), "--"))
 		}
 		return nil, nil, err
 	}
