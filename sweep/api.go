@@ -214,14 +214,23 @@ type (
 		FreqHz float64
 	}
 	// InstrumentLost: an instrument fault (IsInstrumentFault) cut the
-	// attempt at point Index short; the attempt was dropped, the output
-	// turned off (best effort), and the engine reconnects for at most
-	// Window before it gives up. Err names the command that failed.
+	// attempt at point Index short and the attempt was dropped. Err
+	// names the command that failed. Published at once; the engine then
+	// turns the output off, saves the session (WaitingForInstruments)
+	// and reconnects, for at most Window before it gives up.
 	InstrumentLost struct {
 		Index  int
 		FreqHz float64
 		Err    error
 		Window time.Duration
+	}
+	// WaitingForInstruments: after InstrumentLost, the output off was
+	// sent (OffErr nil: the generator accepted it; otherwise why not,
+	// and the output may still be on), the session saved (SaveErr), and
+	// the engine reconnects for at most Window from now.
+	WaitingForInstruments struct {
+		OffErr, SaveErr error
+		Window          time.Duration
 	}
 	// ReconnectFailed: reconnection try Try (from 1) failed with Err;
 	// the next try comes after Retry.
@@ -241,13 +250,14 @@ type (
 	}
 )
 
-func (PointStarted) event()    {}
-func (PointMeasured) event()   {}
-func (PointFlagged) event()    {}
-func (MarginsUpdated) event()  {}
-func (StateChanged) event()    {}
-func (ErrorEvent) event()      {}
-func (PointAdded) event()      {}
-func (InstrumentLost) event()  {}
-func (ReconnectFailed) event() {}
-func (Reconnected) event()     {}
+func (PointStarted) event()          {}
+func (PointMeasured) event()         {}
+func (PointFlagged) event()          {}
+func (MarginsUpdated) event()        {}
+func (StateChanged) event()          {}
+func (ErrorEvent) event()            {}
+func (PointAdded) event()            {}
+func (InstrumentLost) event()        {}
+func (WaitingForInstruments) event() {}
+func (ReconnectFailed) event()       {}
+func (Reconnected) event()           {}

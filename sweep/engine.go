@@ -655,13 +655,15 @@ func (e *Engine) fail(err error) error {
 }
 
 // outputOff turns the generator's output off with a fresh deadline, so it
-// works after ctx has ended.
-func (e *Engine) outputOff() {
+// works after ctx has ended, and returns the generator's error.
+func (e *Engine) outputOff() error {
 	ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
 	defer cancel()
-	if err := e.cfg.Gen.SetOutput(ctx, false); err == nil {
+	err := e.cfg.Gen.SetOutput(ctx, false)
+	if err == nil {
 		e.outputOn = false
 	}
+	return err
 }
 
 func (e *Engine) setup(ctx context.Context) error {

@@ -65,15 +65,21 @@ func (e *Engine) attemptsAt(f float64) int {
 }
 
 // lost handles an instrument fault that ended job j (whose point had
-// before attempts when it began): the output goes off (best effort: the
-// link may be dead), what j still has to do goes back to the front of
-// the queue, the session is saved, and Run reconnects before the next
-// job. The failed attempt was never recorded (runJob records an attempt
-// only once it is measured), so nothing half-measured reaches the file.
+// before attempts when it began): the fault is published at once, the
+// output goes off (best effort: the link may be dead, and over a dead
+// link the off itself may take a timeout), what j still has to do goes
+// back to the front of the queue, the session is saved, and Run
+// reconnects before the next job. The failed attempt was never recorded
+// (runJob records an attempt only once it is measured), so nothing
+// half-measured reaches the file.
 func (e *Engine) lost(j job, before int, err error) {
-	e.outputOff()
 	e.mu.Lock()
 	idx := e.findLocked(j.freq)
+	e.mu.Unlock()
+	e.emit(InstrumentLost{Index: idx, FreqHz: j.freq, Err: err, Window: e.cfg.ReconnectWindow})
+	offErr := e.outputOff()
+	e.mu.Lock()
+	idx = e.findLocked(j.freq)
 	if rest, ok := e.restOfJobLocked(j, before, idx); ok {
 		e.queue = append([]job{rest}, e.queue...)
 	}
@@ -84,13 +90,19 @@ func (e *Engine) lost(j job, before int, err error) {
 		// that connects but never measures cannot hold the sweep forever.
 		e.windowStart = time.Time{}
 	}
+	left := e.cfg.ReconnectWindow
+	if !e.windowStart.IsZero() {
+		left = max(0, e.windowStart.Add(left).Sub(e.cfg.Now()))
+	}
 	e.mu.Unlock()
 	e.fault, e.faultAt, e.faultFreq = err, e.cfg.Now(), j.freq
 	e.unsaved = false
-	if serr := e.Save(); serr != nil {
-		e.emit(ErrorEvent{Err: fmt.Errorf("save session: %w", serr)})
+	serr := e.Save()
+	if serr != nil {
+		serr = fmt.Errorf("save session: %w", serr)
+		e.emit(ErrorEvent{Err: serr})
 	}
-	e.emit(InstrumentLost{Index: idx, FreqHz: j.freq, Err: err, Window: e.cfg.ReconnectWindow})
+	e.emit(WaitingForInstruments{OffErr: offErr, SaveErr: serr, Window: left})
 }
 
 // restOfJobLocked is what job j still has to do after a fault, given
@@ -181,7 +193,7 @@ func (e *Engine) reconnect(ctx context.Context) error {
 	if !now.Before(deadline) {
 		return fmt.Errorf("gave up reconnecting after %v: the instruments answered again but failed again before any attempt was measured: %w", window, e.fault)
 	}
-	e.setState(Reconnecting, fmt.Sprintf("%v; output off, reconnecting for up to %v", e.fault, deadline.Sub(now).Round(time.Second)))
+	e.setState(Reconnecting, fmt.Sprintf("%v; reconnecting for up to %v", e.fault, deadline.Sub(now).Round(time.Second)))
 	wait := e.cfg.ReconnectBackoff
 	for try := 1; ; try++ {
 		step, end, ok := e.beginStep(ctx)

@@ -230,12 +230,17 @@ func TestReconnectResumesWithNoPointLost(t *testing.T) {
 	var retries []time.Duration
 	var stateMsg string
 	var savedWhileWaiting *Session
+	var waiting *WaitingForInstruments
+	offWhenWaiting := false
 	err = collect(t, e, ch, func(ev Event) {
 		switch ev := ev.(type) {
 		case PointMeasured:
 			measured[ev.Index]++
 		case InstrumentLost:
 			lost = &ev
+		case WaitingForInstruments:
+			waiting = &ev
+			offWhenWaiting = !r.bench.Output()
 			s, err := LoadSession(r.cfg.Out)
 			if err != nil {
 				t.Errorf("session file while waiting: %v", err)
@@ -263,8 +268,14 @@ func TestReconnectResumesWithNoPointLost(t *testing.T) {
 	if !strings.Contains(lost.Err.Error(), `"*OPC?"`) || !errors.Is(lost.Err, instr.ErrTimeout) {
 		t.Errorf("InstrumentLost.Err = %v, want the *OPC? timeout", lost.Err)
 	}
-	if !strings.Contains(stateMsg, `"*OPC?"`) || !strings.Contains(stateMsg, "reconnecting") || !strings.Contains(stateMsg, "output off") {
+	if !strings.Contains(stateMsg, `"*OPC?"`) || !strings.Contains(stateMsg, "reconnecting for up to 2m0s") {
 		t.Errorf("Reconnecting state message %q", stateMsg)
+	}
+	// The off reached the hung generator (it executes what it is sent)
+	// though its error check went unanswered, and the waiting event
+	// says so.
+	if waiting == nil || !offWhenWaiting || !errors.Is(waiting.OffErr, instr.ErrTimeout) || waiting.SaveErr != nil || waiting.Window != DefaultReconnectWindow {
+		t.Errorf("WaitingForInstruments %+v with the output off %v; want the off sent, its check timed out, saved, the full window", waiting, offWhenWaiting)
 	}
 	if lost.Window != DefaultReconnectWindow {
 		t.Errorf("window %v, want the default %v", lost.Window, DefaultReconnectWindow)

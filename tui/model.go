@@ -359,6 +359,11 @@ func (m *Model) apply(ev sweep.Event) {
 		if e.Err != nil {
 			m.lost.fault = e.Err.Error()
 		}
+	case sweep.WaitingForInstruments:
+		m.lost.offSent, m.lost.offOK = true, e.OffErr == nil
+		if e.Window > 0 {
+			m.lost.window = e.Window
+		}
 	case sweep.ReconnectFailed:
 		m.lost.tries, m.lost.next = e.Try, e.Retry
 		if e.Err != nil {
@@ -642,8 +647,24 @@ func wrapList(s, sep string, w int) []string {
 // View returns the frame drawn at the last tick or key.
 func (m Model) View() string { return m.frame }
 
+// noAnswer says whether an instrument fault is being handled: from the
+// engine's InstrumentLost (it then turns the output off, saves and
+// reconnects) until Reconnected, unless the sweep paused or ended.
+func (m Model) noAnswer() bool {
+	switch m.state {
+	case sweep.Reconnecting:
+		return true
+	case sweep.Running, sweep.Refining:
+		return m.lost.at >= 0
+	}
+	return false
+}
+
 // stateText names the state for the status line.
 func (m Model) stateText() string {
+	if m.noAnswer() {
+		return "NO ANSWER"
+	}
 	switch m.state {
 	case sweep.Idle:
 		return "STARTING"
@@ -662,8 +683,6 @@ func (m Model) stateText() string {
 		return "ERROR"
 	case sweep.Stopped:
 		return "STOPPED"
-	case sweep.Reconnecting:
-		return "NO ANSWER"
 	}
 	return fmt.Sprintf("state %d", int(m.state))
 }
@@ -829,16 +848,16 @@ func (m Model) statusInfo() statusInfo {
 		k = m.active + 1
 	}
 	in := statusInfo{
-		State: m.stateText(), Bad: m.state == sweep.Failed || m.state == sweep.Reconnecting,
+		State: m.stateText(), Bad: m.state == sweep.Failed || m.noAnswer(),
 		K: k, N: n,
 		File: m.opt.SessionFile, ReadOnly: m.opt.Controller == nil,
 		Flash: m.flash, FlashBad: m.flashBad,
 		GenIDN: m.sess.Instruments.GeneratorIDN, DigIDN: m.sess.Instruments.DigitizerIDN,
 	}
-	switch m.state {
-	case sweep.Failed, sweep.Stopped:
+	switch {
+	case m.state == sweep.Failed || m.state == sweep.Stopped:
 		in.StateMsg = m.stateMsg
-	case sweep.Reconnecting:
+	case m.noAnswer():
 		in.Waiting, in.StateMsg = m.lost.describe()
 		if m.lost.at >= 0 {
 			in.K = m.lost.at + 1
@@ -861,7 +880,9 @@ type lostInfo struct {
 	at      int    // the point it hit; −1: none
 	fault   string // the error, naming the command that went unanswered
 	window  time.Duration
-	tries   int // failed tries so far
+	offSent bool // the engine has sent the output off
+	offOK   bool // and the generator accepted it
+	tries   int  // failed tries so far
 	next    time.Duration
 	lastErr string
 }
@@ -870,7 +891,16 @@ type lostInfo struct {
 // doing (first line, short) and the fault itself, then the give-up
 // window and the last try's error (second line, cut at the width).
 func (l lostInfo) describe() (doing, msg string) {
-	doing = "output off, reconnecting"
+	switch {
+	case !l.offSent:
+		doing = "turning the output off"
+	case l.offOK:
+		doing = "output off, reconnecting"
+	default:
+		// The off went out over a link that did not answer: it may not
+		// have reached the generator.
+		doing = "output off NOT confirmed, reconnecting"
+	}
 	if l.tries > 0 {
 		doing += fmt.Sprintf(" (try %d failed, next in %v)", l.tries, shortDuration(l.next))
 	}

@@ -24,7 +24,8 @@ func lostEvents(f float64) []sweep.Event {
 	return []sweep.Event{
 		sweep.PointStarted{Index: 20, FreqHz: f, Attempt: 1},
 		sweep.InstrumentLost{Index: 20, FreqHz: f, Err: faultErr, Window: 2 * time.Minute},
-		sweep.StateChanged{State: sweep.Reconnecting, Msg: faultErr.Error() + "; output off, reconnecting for up to 2m0s"},
+		sweep.WaitingForInstruments{Window: 2 * time.Minute},
+		sweep.StateChanged{State: sweep.Reconnecting, Msg: faultErr.Error() + "; reconnecting for up to 2m0s"},
 		sweep.ReconnectFailed{Try: 1, Err: tryErr, Retry: 250 * time.Millisecond},
 	}
 }
@@ -83,6 +84,31 @@ func TestReconnectingStatus(t *testing.T) {
 	}}, tickMsg(testT0.Add(34*time.Second)))
 	if l1, _ := statusLines(m); !strings.Contains(l1, "RUNNING") || !strings.Contains(l1, "point 21 of 31") {
 		t.Errorf("state line after the reconnection %q", l1)
+	}
+}
+
+// TestNoAnswerBeforeWaiting: from the fault until the engine has sent
+// the output off, the screen already says the instrument does not
+// answer and that the output is being turned off; when the off was sent
+// over a link that did not answer, it says the off is not confirmed.
+func TestNoAnswerBeforeWaiting(t *testing.T) {
+	m := newTest(t, &fakeController{}, 200, 50)
+	f := m.sess.Points[20].FreqHz
+	m, _ = send(t, m, eventsMsg{evs: []sweep.Event{
+		sweep.StateChanged{State: sweep.Running},
+		sweep.PointStarted{Index: 20, FreqHz: f, Attempt: 1},
+		sweep.InstrumentLost{Index: 20, FreqHz: f, Err: faultErr, Window: 2 * time.Minute},
+	}}, tickMsg(testT0.Add(31*time.Second)))
+	l1, l2 := statusLines(m)
+	if !strings.Contains(l1, "NO ANSWER · turning the output off · point 21 of 31") || !strings.Contains(l2, `query "*OPC?"`) {
+		t.Errorf("status right after the fault:\n%s\n%s", l1, l2)
+	}
+	m, _ = send(t, m, eventsMsg{evs: []sweep.Event{
+		sweep.WaitingForInstruments{OffErr: errors.New(`output off: query "SYST:ERR?" on 127.0.0.1:5025: timeout`), Window: 2 * time.Minute},
+		sweep.StateChanged{State: sweep.Reconnecting, Msg: faultErr.Error() + "; reconnecting for up to 2m0s"},
+	}}, tickMsg(testT0.Add(32*time.Second)))
+	if l1, _ := statusLines(m); !strings.Contains(l1, "NO ANSWER · output off NOT confirmed, reconnecting") {
+		t.Errorf("unconfirmed off not shown:\n%s", l1)
 	}
 }
 

@@ -154,7 +154,15 @@ func reportReconnect(w io.Writer, ev sweep.Event, nPoints func() int) bool {
 	switch ev := ev.(type) {
 	case sweep.InstrumentLost:
 		fmt.Fprintf(w, "instrument fault at point %d/%d (%s Hz): %v\n", ev.Index+1, nPoints(), fmtSI(ev.FreqHz), ev.Err)
-		fmt.Fprintf(w, "waiting for the instruments: output off, session saved, reconnecting for up to %v (Ctrl-C stops)\n", ev.Window)
+	case sweep.WaitingForInstruments:
+		off, saved := "output off", "session saved"
+		if ev.OffErr != nil {
+			off = fmt.Sprintf("output off sent but not confirmed (%s): the output may still be on", oneLine(ev.OffErr))
+		}
+		if ev.SaveErr != nil {
+			saved = fmt.Sprintf("session NOT saved (%s)", oneLine(ev.SaveErr))
+		}
+		fmt.Fprintf(w, "waiting for the instruments: %s, %s, reconnecting for up to %v (Ctrl-C stops)\n", off, saved, ev.Window)
 	case sweep.ReconnectFailed:
 		fmt.Fprintf(w, "reconnect try %d failed: %v; next try in %v\n", ev.Try, oneLine(ev.Err), roundWait(ev.Retry))
 	case sweep.Reconnected:

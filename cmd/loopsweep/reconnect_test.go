@@ -4,11 +4,13 @@ import (
 	"context"
 	"errors"
 	"net"
+	"path/filepath"
 	"strings"
 	"testing"
 	"time"
 
 	"loopsweep/instr"
+	"loopsweep/sim"
 	"loopsweep/sweep"
 )
 
@@ -120,5 +122,70 @@ func TestOffFallbackSendsOverNewLink(t *testing.T) {
 	}
 	if srv.OutputOn() {
 		t.Error("output still on: the fallback did not reach the generator")
+	}
+}
+
+// TestReconnectInProcess wires the engine as runSweep does (guard,
+// relinker, safety) against the simulated bench in this process, so the
+// race detector sees the reconnection: the bench stops answering at
+// point 3 and answers again after the first failed try; the sweep
+// completes with every point measured once.
+func TestReconnectInProcess(t *testing.T) {
+	srv := startBench(t)
+	b, guard := openTestBench(t, srv.GenAddr(), srv.DigAddr())
+	rl := &relinker{b: b, genAddr: srv.GenAddr(), digAddr: srv.DigAddr(), timeout: 300 * time.Millisecond, guard: guard, want: b.info}
+	set := sweep.Defaults()
+	set.StartHz, set.StopHz, set.PerDecade, set.RefineBudget = 1e3, 1e4, 10, 0
+	set.SettleMin = 30 * time.Millisecond
+	set.MaxAmpVpp, set.AmpVpp = 1, 0.1
+	events := make(chan sweep.Event, 64)
+	eng, err := sweep.New(sweep.Config{Settings: set, Gen: guard, Dig: b.dig, Out: filepath.Join(t.TempDir(), "s.json"),
+		ACCoupling: b.ac, FixedOffset: b.fixedOff, MaxPoints: b.maxPoints, Events: events,
+		Reconnect: rl.Reconnect, ReconnectWindow: time.Minute})
+	if err != nil {
+		t.Fatal(err)
+	}
+	saf := newSafety(offWithFallback(guard.Shutdown, srv.GenAddr(), b.genProf, time.Second), eng.Save)
+	defer saf.Done()
+	runErr := make(chan error, 1)
+	saf.Go(func() { runErr <- eng.Run(saf.Context()) })
+	measured := map[int]int{}
+	injected, lost, back := false, false, false
+	for ev := range events {
+		switch ev := ev.(type) {
+		case sweep.PointStarted:
+			if ev.Index == 2 && !injected {
+				srv.SetFaults(sim.Faults{ReplyDelay: time.Second})
+				injected = true
+			}
+		case sweep.PointMeasured:
+			measured[ev.Index]++
+		case sweep.InstrumentLost:
+			lost = true
+		case sweep.WaitingForInstruments:
+			// The simulator executes the off though it answers nothing.
+			if srv.OutputOn() {
+				t.Error("output on while waiting for the instruments")
+			}
+		case sweep.ReconnectFailed:
+			srv.SetFaults(sim.Faults{})
+		case sweep.Reconnected:
+			back = true
+		}
+	}
+	if err := <-runErr; err != nil {
+		t.Fatalf("Run: %v", err)
+	}
+	if !lost || !back {
+		t.Fatalf("fault reported %v, reconnected %v", lost, back)
+	}
+	s := eng.Snapshot()
+	for i, p := range s.Points {
+		if len(p.Attempts) != 1 || measured[i] != 1 {
+			t.Errorf("point %d: %d attempts, %d PointMeasured; want 1 and 1", i+1, len(p.Attempts), measured[i])
+		}
+	}
+	if srv.OutputOn() {
+		t.Error("output on after the sweep")
 	}
 }
