@@ -637,3 +637,56 @@ func TestReconnectRepeatedFaultKeepsWindow(t *testing.T) {
 		t.Error("output on after giving up")
 	}
 }
+
+// TestReconnectGiveUpPausesWithPauseOnError: on a front end that pauses
+// on errors (the bench screen), giving up pauses the sweep with the
+// give-up error published; the user repairs the bench and resumes, which
+// tries again for a new window, and the sweep completes with every point
+// once.
+func TestReconnectGiveUpPausesWithPauseOnError(t *testing.T) {
+	r, _, rc := reconnectRig(t, 6, 1<<30)
+	r.cfg.ReconnectWindow = 2 * time.Second
+	r.cfg.PauseOnError = true
+	ch := make(chan Event)
+	r.cfg.Events = ch
+	e, err := New(r.cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var gaveUp error
+	triesAtPause := 0
+	err = collect(t, e, ch, func(ev Event) {
+		switch ev := ev.(type) {
+		case ErrorEvent:
+			gaveUp = ev.Err
+		case StateChanged:
+			if ev.State == Paused && triesAtPause == 0 {
+				triesAtPause = rc.tries
+				if r.bench.Output() {
+					t.Error("output on while paused after giving up")
+				}
+				rc.outage = rc.tries // repaired
+				e.Resume()
+			}
+		}
+	})
+	if err != nil {
+		t.Fatalf("Run: %v", err)
+	}
+	if gaveUp == nil || !strings.Contains(gaveUp.Error(), "gave up reconnecting after 2s") {
+		t.Errorf("give-up error %v", gaveUp)
+	}
+	// 2 s window, 0.25 s doubling: tries at 0, 0.25, 0.75, 1.75 and 2 s.
+	if triesAtPause != 5 || rc.tries != 6 {
+		t.Errorf("paused after %d tries, %d in all; want 5 and one more after Resume", triesAtPause, rc.tries)
+	}
+	s := e.Snapshot()
+	for i, p := range s.Points {
+		if len(p.Attempts) != 1 {
+			t.Errorf("point %d has %d attempts, want 1", i+1, len(p.Attempts))
+		}
+	}
+	if !s.Complete || e.State() != Done {
+		t.Errorf("complete %v, state %v", s.Complete, e.State())
+	}
+}
