@@ -189,3 +189,18 @@ func TestReconnectInProcess(t *testing.T) {
 		t.Error("output on after the sweep")
 	}
 }
+
+// TestReconnectWindowFlag: a negative or malformed window is bad input
+// (exit status 2) naming the flag, before any instrument is opened.
+func TestReconnectWindowFlag(t *testing.T) {
+	for _, c := range []struct{ val, want string }{
+		{"-1s", "--reconnect-window -1s: want a duration of 0 or more"},
+		{"2 minutes", "reconnect-window"},
+	} {
+		var out, errb strings.Builder
+		code := run([]string{"sweep", "--sim", "--headless", "--out", filepath.Join(t.TempDir(), "s.json"), "--reconnect-window", c.val}, &out, &errb)
+		if code != 2 || !strings.Contains(errb.String(), c.want) {
+			t.Errorf("--reconnect-window %q: exit %d, stderr %q; want 2 and %q", c.val, code, errb.String(), c.want)
+		}
+	}
+}
