@@ -54,7 +54,58 @@ const (
 	// by at least this factor (more cycles, a larger injection) to be
 	// worth its time.
 	refineMinGain = 1.5
+	// snrMarginDB: a first attempt is sized so its predicted SNR is at
+	// least MinSNRdB plus this margin (the prediction's own scatter).
+	snrMarginDB = 3.0
 )
+
+// snrPerCycleLocked is the linear SNR one cycle of record carries on the
+// weaker channel, from the most recently finished attempt of the sweep
+// that is neither clipped nor at the SNR cap, scaled to amplitude amp
+// (tone power ∝ amp², the noise unchanged); 0 when none is known. SNR
+// grows as the record's samples in white noise (analysis: SNR =
+// N·A²/(2σ²) for the rectangular fit), so per cycle at the same samples
+// per cycle.
+func (e *Engine) snrPerCycleLocked(amp float64) float64 {
+	var (
+		best Attempt
+		ok   bool
+	)
+	for _, p := range e.sess.Points {
+		for _, a := range p.Attempts {
+			if a.Ch1.Clipped || a.Ch2.Clipped || !(a.Cycles > 0) || !(a.AmpVpp > 0) {
+				continue
+			}
+			if !ok || a.Finished.After(best.Finished) {
+				best, ok = a, true
+			}
+		}
+	}
+	if !ok {
+		return 0
+	}
+	snr := math.Min(best.Ch1.SNRdB, best.Ch2.SNRdB)
+	if !(snr < analysis.SNRCapDB) || !(snr > -analysis.SNRCapDB) {
+		return 0
+	}
+	return math.Pow(10, snr/10) / best.Cycles * sq(amp/best.AmpVpp)
+}
+
+// cyclesForSNR is the fewest cycles at perCycle (linear SNR per cycle)
+// that reach MinSNRdB + snrMarginDB: SNR(c) = c·perCycle, so
+// c = ⌈10^((MinSNRdB+margin)/10)/perCycle⌉, the closed form
+// ⌈cycles·10^((MinSNRdB+margin−SNR(cycles))/10)⌉. 0 when perCycle is
+// unknown.
+func cyclesForSNR(set Settings, perCycle float64) int {
+	if !(perCycle > 0) || !finite(perCycle) {
+		return 0
+	}
+	c := math.Ceil(math.Pow(10, (set.MinSNRdB+snrMarginDB)/10) / perCycle)
+	if !(c < maxCycles) {
+		return maxCycles
+	}
+	return int(c)
+}
 
 func (e *Engine) interrupted() bool {
 	e.mu.Lock()
@@ -421,6 +472,16 @@ func (e *Engine) runJob(ctx context.Context, j job) (err error) {
 		e.mu.Unlock()
 	}
 	cycles := set.Cycles * cx
+	// Size a point's first attempt from the SNR per cycle the sweep last
+	// measured, so it is unlikely to need a retry (never fewer cycles
+	// than planned; the cap below still holds). A point that already has
+	// attempts (a retry carried over a reconnect, a re-measure) keeps the
+	// growth its job was given.
+	e.mu.Lock()
+	if len(e.sess.Points[idx].Attempts) == 0 {
+		cycles = max(cycles, cyclesForSNR(set, e.snrPerCycleLocked(amp)))
+	}
+	e.mu.Unlock()
 	for k := 0; k < maxA; k++ {
 		cycles = min(cycles, cycleCap(set, j.freq))
 		e.mu.Lock()
@@ -647,17 +708,24 @@ func (e *Engine) measureOnce(ctx, stepCtx context.Context, set Settings, f, amp 
 				settled := t0.Add(set.SettleTime(tone))
 				if !e.ranged && math.Abs(actual-tone) <= 1e-9*tone {
 					startSave()
-					if err := e.rangeWhileSettling(ctx, stepCtx, want, got, tone, settled); err != nil {
+					perCycle, err := e.rangeWhileSettling(ctx, stepCtx, want, got, tone, settled)
+					if err != nil {
 						return Attempt{}, err
 					}
 					// The attempt's own record, with the windows learned (a
-					// no-op when no ranging record was taken).
+					// no-op when no ranging record was taken), and long
+					// enough for the SNR the ranging predicts.
 					want.Channels = e.chans
+					if got.Points == want.Points {
+						want.Points, rippleBin = e.lengthenRecord(set, got.Points, int(c), rippleBin, tone, cyclesForSNR(set, perCycle))
+					}
 					if got, err = e.configure(ctx, want, tone); err != nil {
 						return Attempt{}, err
 					}
 					c = math.Max(1, math.Round(float64(got.Points)*tone*got.IntervalS))
 					actual = c / (float64(got.Points) * got.IntervalS)
+					// A capture taken again (range) keeps the length.
+					cycles = max(cycles, int(c))
 				}
 				startSave()
 				if err := e.sleep(ctx, stepCtx, settled.Sub(e.cfg.Now())); err != nil {
@@ -1159,11 +1227,17 @@ const (
 // before settled; a ranging fit that fails ends the ranging (the
 // attempt's own captures then range as before). want and got are the
 // attempt's record as planned and as configured.
-func (e *Engine) rangeWhileSettling(ctx, stepCtx context.Context, want, got instr.CaptureSettings, tone float64, settled time.Time) error {
+//
+// It also returns the linear SNR per cycle of record on the weaker
+// channel, A²/(2σ²) per sample (the rectangular fit's SNR = N·A²/(2σ²),
+// analysis) times the samples per cycle, from the last ranging record
+// that fitted unclipped; 0 when there is none.
+func (e *Engine) rangeWhileSettling(ctx, stepCtx context.Context, want, got instr.CaptureSettings, tone float64, settled time.Time) (float64, error) {
 	n := int(math.Ceil(rangingCycles / (tone * got.IntervalS)))
 	if n >= got.Points {
-		return nil
+		return 0, nil
 	}
+	perCycle := 0.0
 	per := time.Duration(float64(n)*got.IntervalS*float64(time.Second)) + rangingExchange
 	for k := 0; k < rangingCaptures; k++ {
 		// Room for this record and, after the last, the attempt's Configure.
@@ -1173,33 +1247,77 @@ func (e *Engine) rangeWhileSettling(ctx, stepCtx context.Context, want, got inst
 		}
 		if wait := left - time.Duration(rangingCaptures-k)*per - rangingExchange; wait > 0 {
 			if err := e.sleep(ctx, stepCtx, wait); err != nil {
-				return err
+				return 0, err
 			}
 		}
 		if e.interrupted() {
-			return errInterrupted
+			return 0, errInterrupted
 		}
 		w := want
 		w.Points, w.Channels = n, e.chans
 		g, err := e.configure(ctx, w, tone)
 		if err != nil {
-			return err
+			return 0, err
 		}
 		if err := e.joinSave(); err != nil {
-			return fmt.Errorf("save session: %w", err)
+			return 0, fmt.Errorf("save session: %w", err)
 		}
 		b1, b2 := e.buf1[:g.Points], e.buf2[:g.Points]
 		if err := e.cfg.Dig.Capture(ctx, b1, b2); err != nil {
-			return fmt.Errorf("ranging capture of %d points at %g Hz: %w", g.Points, tone, err)
+			return 0, fmt.Errorf("ranging capture of %d points at %g Hz: %w", g.Points, tone, err)
 		}
 		o1, o2 := clipWindow(g.Channels[0]), clipWindow(g.Channels[1])
 		o1.Window, o2.Window = analysis.Hann, analysis.Hann
 		t1, t2, err := analysis.EstimatePair(b1, b2, g.IntervalS, tone, o1, o2)
-		if err != nil || !e.autorange(t1, t2, [2]extent{extentOf(b1), extentOf(b2)}, g) {
+		if err != nil {
+			break
+		}
+		if !t1.Clipped && !t2.Clipped && t1.NoiseRMS > 0 && t2.NoiseRMS > 0 {
+			spc := 1 / (tone * g.IntervalS)
+			perCycle = math.Min(sq(t1.AmpPeak/t1.NoiseRMS), sq(t2.AmpPeak/t2.NoiseRMS)) / 2 * spc
+		} else {
+			perCycle = 0
+		}
+		if !e.autorange(t1, t2, [2]extent{extentOf(b1), extentOf(b2)}, g) {
 			break
 		}
 	}
-	return nil
+	return perCycle, nil
+}
+
+// lengthenRecord returns the points (and the ripple's bin) of a record
+// of n samples holding c whole cycles of tone, lengthened to hold at
+// least need cycles at the same tone and sample interval: k·n/g samples
+// for k·c/g cycles, g = gcd(n, c), so the tone needs no new setting and
+// no new settling wait (with a ripple bin, whole multiples of the record,
+// which keep the ripple's cycles whole and put its alias on bin k·bin).
+// It stays within cycleCap and the digitizer's points, and never
+// shortens the record.
+func (e *Engine) lengthenRecord(set Settings, n, c, rippleBin int, tone float64, need int) (int, int) {
+	if need <= c || n <= 0 || c <= 0 {
+		return n, rippleBin
+	}
+	p, q := n, c
+	if rippleBin <= 0 {
+		g := gcd(n, c)
+		p, q = n/g, c/g
+	}
+	k := (need + q - 1) / q
+	k = min(k, e.cfg.MaxPoints/p, cycleCap(set, tone)/q)
+	if k*q <= c {
+		return n, rippleBin
+	}
+	if rippleBin > 0 {
+		rippleBin *= k
+	}
+	return k * p, rippleBin
+}
+
+func gcd(a, b int) int {
+	for b != 0 {
+		a, b = b, a%b
+	}
+	return a
 }
 
 // configure sends the capture settings unless they equal the last ones

@@ -36,6 +36,20 @@ import (
 // AmpVpp, the Guard ramps the step and enforces the cap, and the attempt
 // records the amplitude it used. A user who wants no level above AmpVpp
 // sets MaxAmpVpp to it.
+//
+// Cycles is a floor, not the record length: each point's first attempt
+// is sized so it is unlikely to need a retry. From the SNR per cycle on
+// the weaker channel last measured (the first point: its ranging
+// records, A²/(2σ²) per sample times the samples per cycle; later
+// points: the most recent unclipped attempt's SNR over its cycles,
+// scaled by the square of the amplitude ratio) the engine predicts the
+// record's SNR, which grows as 10·log10 of the record length in white
+// noise, and when that falls short of MinSNRdB plus a 3 dB margin takes
+// ⌈10^((MinSNRdB+3)/10)/(SNR per cycle)⌉ cycles instead, never fewer
+// than Cycles and within the record limits (0.25 s, maxCycles, the
+// digitizer's points). The first point's longer record keeps its tone,
+// so it needs no new settling wait. The judge's retry with more cycles
+// stays as the safety net.
 const (
 	DefaultStartHz       = 100.0
 	DefaultStopHz        = 100e3
